@@ -1,0 +1,78 @@
+package trigger
+
+import (
+	"fmt"
+	"math"
+)
+
+// Grid describes the calorimeter tower grid. Cell ieta lies in
+// [0, EtaBins) with centre EtaMin+(ieta+0.5)*EtaStep; cell iphi lies in
+// [0, PhiBins) with centre -pi+(iphi+0.5)*2pi/PhiBins. Each cell has two
+// layers: 0 electromagnetic, 1 hadronic.
+//
+// The zero Grid has no cells: towers are then off the grid and only the
+// features that use tower eta and phi directly (MET, sum ET) see them.
+type Grid struct {
+	EtaBins, PhiBins int
+	EtaMin, EtaStep  float64
+}
+
+// Validate reports a grid that cannot hold towers. Grid-based algorithms
+// need at least three phi bins, so that the 3x3 window wraps around without
+// meeting itself.
+func (g Grid) Validate() error {
+	if g.EtaBins <= 0 || g.PhiBins < 3 {
+		return fmt.Errorf("trigger: grid has %d eta bins and %d phi bins, want > 0 and >= 3", g.EtaBins, g.PhiBins)
+	}
+	if g.EtaBins > 1<<12 || g.PhiBins > 1<<12 {
+		return fmt.Errorf("trigger: grid of %d x %d cells is too large, want at most 4096 bins per axis", g.EtaBins, g.PhiBins)
+	}
+	if !(g.EtaStep > 0) || math.IsInf(g.EtaStep, 0) || math.IsNaN(g.EtaMin) || math.IsInf(g.EtaMin, 0) {
+		return fmt.Errorf("trigger: grid eta start %v and step %v, want finite values and step > 0", g.EtaMin, g.EtaStep)
+	}
+	return nil
+}
+
+// Cells returns the number of (ieta, iphi) cells, EtaBins*PhiBins, or 0
+// for a grid with no cells.
+func (g Grid) Cells() int {
+	if g.EtaBins <= 0 || g.PhiBins <= 0 {
+		return 0
+	}
+	return g.EtaBins * g.PhiBins
+}
+
+// EtaCentre returns the eta of the centre of cells in row ieta.
+func (g Grid) EtaCentre(ieta int) float64 {
+	return g.EtaMin + (float64(ieta)+0.5)*g.EtaStep
+}
+
+// PhiStep returns the width of one cell in phi, 2pi/PhiBins.
+func (g Grid) PhiStep() float64 {
+	return 2 * math.Pi / float64(g.PhiBins)
+}
+
+// PhiCentre returns the phi of the centre of cells in column iphi, in
+// (-pi, pi). It is evaluated as written in the Grid comment, term by term,
+// so that a tower whose Phi was computed the same way matches it exactly
+// and its direction can be looked up instead of computed.
+func (g Grid) PhiCentre(iphi int) float64 {
+	return -math.Pi + (float64(iphi)+0.5)*2*math.Pi/float64(g.PhiBins)
+}
+
+// Tower is one calorimeter tower reading. ET is the transverse energy in
+// GeV; Eta and Phi are the tower centre. Layer is 0 for the
+// electromagnetic and 1 for the hadronic layer.
+type Tower struct {
+	Layer      uint8
+	IEta, IPhi int
+	Eta, Phi   float64
+	ET         float64
+}
+
+// Event is what the selection sees of one bunch crossing: the calorimeter
+// towers and the lumi slice the crossing belongs to.
+type Event struct {
+	Towers    []Tower
+	LumiSlice uint32
+}

@@ -1,0 +1,248 @@
+package trigger
+
+import "math"
+
+// FeatureConfig says how features are computed from the towers of an
+// event. The zero value is usable: every tower with a finite, non-negative
+// E_T counts towards MET and sum ET, and no collections are built.
+//
+// The tower selection (noise cut and |eta| range) applies to every feature:
+// MET, sum ET and the towers an algorithm sees.
+type FeatureConfig struct {
+	// Grid is the tower grid of the calorimeter. A zero or invalid Grid
+	// puts every tower off the grid: grid-based collections stay empty.
+	Grid Grid
+	// NoiseCut in GeV: towers with E_T below it are ignored. Zero keeps
+	// every tower with E_T >= 0; towers with negative E_T are always
+	// ignored.
+	NoiseCut float64
+	// EtaMin and EtaMax bound |eta| of the towers used, both inclusive.
+	// EtaMin zero: no lower bound; EtaMax zero: no upper bound.
+	EtaMin, EtaMax float64
+	// Collections are the object collections, built in order. Nil: none.
+	Collections []CollectionConfig
+}
+
+// CollectionConfig names one collection and the algorithm that fills it.
+type CollectionConfig struct {
+	// Name is the name menus use, a lower-case identifier such as "jets".
+	Name string
+	// Algorithm fills the collection; it must not be nil.
+	Algorithm Algorithm
+}
+
+// Features holds what ComputeFeatures derives from one event. The zero
+// value is ready to use; a Features value reused for events with the same
+// FeatureConfig does not allocate once its buffers have grown to the
+// largest event seen. It is not safe for concurrent use.
+type Features struct {
+	// METx and METy are minus the vector sum of the selected towers' E_T,
+	// in GeV; MET is their magnitude and METPhi = atan2(METy, METx), in
+	// (-pi, pi], zero when MET is zero.
+	METx, METy, MET, METPhi float64
+	// SumET is the scalar sum of the selected towers' E_T, in GeV.
+	SumET float64
+	// Used counts the towers that passed the tower selection.
+	Used int
+	// Bad counts towers ignored because their E_T, eta or phi was NaN or
+	// infinite.
+	Bad int
+	// OffGrid counts selected towers whose (IEta, IPhi) lies outside the
+	// grid: they count towards MET and sum ET but no grid-based collection
+	// sees them.
+	OffGrid int
+
+	scalars []float64    // met, met_phi, sumet, then each algorithm's scalars
+	colls   []Collection // one per FeatureConfig.Collections
+	outs    []Output
+	// layoutOf is the Collections slice the buffers were laid out for.
+	layoutOf []CollectionConfig
+	// scalarFields holds each collection's Schema().Scalars, read once per
+	// layout so that Scalar need not call Schema.
+	scalarFields [][]Field
+	in           Input
+
+	// phiCentre, phiSin and phiCos hold the centre of each phi column of
+	// the grid and its sine and cosine, the same values math.Sincos gives.
+	phiCentre, phiSin, phiCos []float64
+}
+
+func (f *Features) phiTable(g Grid, valid bool) {
+	f.phiCentre, f.phiSin, f.phiCos = nil, nil, nil
+	if !valid {
+		return
+	}
+	f.phiCentre = make([]float64, g.PhiBins)
+	f.phiSin = make([]float64, g.PhiBins)
+	f.phiCos = make([]float64, g.PhiBins)
+	for i := range f.phiCentre {
+		f.phiCentre[i] = g.PhiCentre(i)
+		f.phiSin[i], f.phiCos[i] = math.Sincos(f.phiCentre[i])
+	}
+}
+
+// Collection returns the collection called name, or nil.
+func (f *Features) Collection(name string) *Collection {
+	for i := range f.colls {
+		if f.colls[i].name == name {
+			return &f.colls[i]
+		}
+	}
+	return nil
+}
+
+// Scalar returns the scalar feature called name (met, met_phi, sumet, or a
+// scalar of an algorithm, such as ht), and false if there is none.
+func (f *Features) Scalar(name string) (float64, bool) {
+	switch name {
+	case "met":
+		return f.MET, true
+	case "met_phi":
+		return f.METPhi, true
+	case "sumet":
+		return f.SumET, true
+	}
+	for i := range f.outs {
+		for j, fd := range f.scalarFields[i] {
+			if fd.Name == name {
+				return f.outs[i].Scalars[j], true
+			}
+		}
+	}
+	return 0, false
+}
+
+// layout prepares the buffers for cfg. It allocates only when the
+// configuration differs from the previous call's.
+//
+// Two configurations are the same when they share the Collections slice;
+// a FeatureConfig copied by value keeps sharing it.
+func (f *Features) layout(cfg *FeatureConfig) {
+	if f.scalars != nil && sameCollections(f.layoutOf, cfg.Collections) {
+		return
+	}
+	f.layoutOf = cfg.Collections
+	n := len(cfg.Collections)
+	f.colls = make([]Collection, n)
+	f.outs = make([]Output, n)
+	f.scalarFields = make([][]Field, n)
+	nsc := builtinScalars
+	for i, cc := range cfg.Collections {
+		sc := cc.Algorithm.Schema()
+		f.colls[i] = Collection{name: cc.Name, fields: sc.Fields}
+		f.scalarFields[i] = sc.Scalars
+		nsc += len(sc.Scalars)
+	}
+	f.scalars = make([]float64, nsc)
+	k := builtinScalars
+	for i := range f.outs {
+		m := len(f.scalarFields[i])
+		f.outs[i] = Output{Objects: &f.colls[i], Scalars: f.scalars[k : k+m : k+m]}
+		k += m
+	}
+}
+
+func sameCollections(a, b []CollectionConfig) bool {
+	if len(a) != len(b) {
+		return false
+	}
+	return len(a) == 0 || &a[0] == &b[0]
+}
+
+// finite reports whether x is neither NaN nor infinite.
+func finite(x float64) bool { return x-x == 0 }
+
+// ComputeFeatures fills f from the towers of ev under cfg. It reads ev and
+// never keeps a reference to it beyond the next call with the same f.
+// Towers with a non-finite E_T, eta or phi are ignored and counted in
+// f.Bad; no tower value makes it panic. It panics if an Algorithm in cfg is
+// nil. Calls with distinct f may run concurrently.
+func ComputeFeatures(ev *Event, cfg FeatureConfig, f *Features) {
+	computeFeatures(ev, &cfg, f)
+}
+
+func computeFeatures(ev *Event, cfg *FeatureConfig, f *Features) {
+	f.layout(cfg)
+	in := &f.in
+	// Clear the cells of the previous event only, not the whole grid.
+	for _, c := range in.Touched {
+		in.Cells[c] = 0
+	}
+	in.Touched = in.Touched[:0]
+	in.Selected = in.Selected[:0]
+	g := cfg.Grid
+	cells := 0
+	if g.Validate() == nil {
+		cells = g.Cells()
+	}
+	if len(in.Cells) != cells || in.Grid != g {
+		in.Cells = make([]float64, cells)
+		f.phiTable(g, cells > 0)
+	}
+	in.Grid, in.Event = g, ev
+
+	cut := cfg.NoiseCut
+	etaMin, etaMax := cfg.EtaMin, cfg.EtaMax
+	if etaMax <= 0 {
+		etaMax = math.Inf(1)
+	}
+	var sx, sy, sum float64
+	f.Used, f.Bad, f.OffGrid = 0, 0, 0
+	cellsV := in.Cells
+	for i := range ev.Towers {
+		t := &ev.Towers[i]
+		if !finite(t.ET) || !finite(t.Eta) || !finite(t.Phi) {
+			f.Bad++
+			continue
+		}
+		if t.ET < cut || t.ET < 0 {
+			continue
+		}
+		if a := math.Abs(t.Eta); a < etaMin || a > etaMax {
+			continue
+		}
+		f.Used++
+		var sin, cos float64
+		if uint(t.IPhi) < uint(len(f.phiCentre)) && f.phiCentre[t.IPhi] == t.Phi {
+			// Most towers sit at their cell centre: look the direction up.
+			sin, cos = f.phiSin[t.IPhi], f.phiCos[t.IPhi]
+		} else {
+			sin, cos = math.Sincos(t.Phi)
+		}
+		sx += t.ET * cos
+		sy += t.ET * sin
+		sum += t.ET
+		in.Selected = append(in.Selected, int32(i))
+		if cells == 0 || t.IEta < 0 || t.IEta >= g.EtaBins || t.IPhi < 0 || t.IPhi >= g.PhiBins {
+			f.OffGrid++
+			continue
+		}
+		if t.ET == 0 {
+			continue // adds nothing, and a cell is touched only when it holds energy
+		}
+		c := t.IEta*g.PhiBins + t.IPhi
+		if cellsV[c] == 0 {
+			in.Touched = append(in.Touched, int32(c))
+		}
+		cellsV[c] += t.ET
+	}
+	// 0 - s rather than -s, so that an empty event has METx = +0 and
+	// METPhi = atan2(+0, +0) = 0 rather than -pi.
+	f.METx, f.METy = 0-sx, 0-sy
+	f.MET = math.Hypot(f.METx, f.METy)
+	f.METPhi = 0
+	if f.MET > 0 {
+		f.METPhi = math.Atan2(f.METy, f.METx)
+	}
+	f.SumET = sum
+	f.scalars[slotMET] = f.MET
+	f.scalars[slotMETPhi] = f.METPhi
+	f.scalars[slotSumET] = f.SumET
+	for i, cc := range cfg.Collections {
+		o := &f.outs[i]
+		o.Objects.Reset()
+		clear(o.Scalars)
+		cc.Algorithm.Run(in, o)
+	}
+	in.Event = nil // do not keep the event alive in a pooled Features
+}

@@ -1,0 +1,107 @@
+package trigger
+
+import (
+	"math"
+	"testing"
+)
+
+// metTowers are four towers whose sums are worked out by hand below. MET is
+// minus the vector sum of tower E_T and sum ET the scalar sum (the
+// definitions of the design's vocabulary, common practice).
+func metTowers() *Event {
+	return &Event{Towers: []Tower{
+		{ET: 30, Eta: 0.05, Phi: 0},            // a
+		{ET: 40, Eta: -1.25, Phi: math.Pi / 2}, // b
+		{ET: 0.4, Eta: 0.35, Phi: math.Pi},     // c: below a 0.5 GeV noise cut
+		{ET: 25, Eta: 4.5, Phi: math.Pi},       // d: outside |eta| <= 4
+	}}
+}
+
+func TestMETAndSumET(t *testing.T) {
+	cases := []struct {
+		name                    string
+		cfg                     FeatureConfig
+		metx, mety, met, metPhi float64
+		sumet                   float64
+		used                    int
+	}{
+		// a + b: vector sum (30, 40), so MET = (-30, -40), |MET| = 50 (a
+		// 3-4-5 triangle), phi = atan2(-40, -30) = -2.2142974 rad, sum ET =
+		// 30 + 40 = 70.
+		{"noise cut and eta range", FeatureConfig{NoiseCut: 0.5, EtaMax: 4}, -30, -40, 50, math.Atan2(-40, -30), 70, 2},
+		// a + b + c: vector sum (30 - 0.4, 40); MET = sqrt(29.6^2 + 40^2) =
+		// sqrt(2476.16) = 49.76102; sum ET 70.4.
+		{"no noise cut", FeatureConfig{EtaMax: 4}, -29.6, -40, math.Sqrt(2476.16), math.Atan2(-40, -29.6), 70.4, 3},
+		// a + b + d: vector sum (30 - 25, 40); MET = sqrt(5^2 + 40^2) =
+		// sqrt(1625) = 40.31129; sum ET 95.
+		{"no eta range", FeatureConfig{NoiseCut: 0.5}, -5, -40, math.Sqrt(1625), math.Atan2(-40, -5), 95, 3},
+		// all four: vector sum (30 - 0.4 - 25, 40) = (4.6, 40); MET =
+		// sqrt(21.16 + 1600) = 40.26363; sum ET 95.4.
+		{"no selection", FeatureConfig{}, -4.6, -40, math.Sqrt(1621.16), math.Atan2(-40, -4.6), 95.4, 4},
+		// |eta| >= 1 leaves b only: MET = (0, -40), phi = -pi/2, sum ET 40.
+		{"eta_min", FeatureConfig{NoiseCut: 0.5, EtaMin: 1, EtaMax: 4}, 0, -40, 40, -math.Pi / 2, 40, 1},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			var f Features
+			ComputeFeatures(metTowers(), c.cfg, &f)
+			const tol = 1e-9
+			if !near(f.METx, c.metx, tol) || !near(f.METy, c.mety, tol) {
+				t.Errorf("MET vector (%v, %v), want (%v, %v)", f.METx, f.METy, c.metx, c.mety)
+			}
+			if !near(f.MET, c.met, tol) || !near(f.METPhi, c.metPhi, tol) {
+				t.Errorf("MET %v at phi %v, want %v at %v", f.MET, f.METPhi, c.met, c.metPhi)
+			}
+			if !near(f.SumET, c.sumet, tol) || f.Used != c.used {
+				t.Errorf("sum ET %v from %d towers, want %v from %d", f.SumET, f.Used, c.sumet, c.used)
+			}
+			if v, _ := f.Scalar("met"); v != f.MET {
+				t.Errorf("Scalar(met) = %v, want %v", v, f.MET)
+			}
+		})
+	}
+}
+
+func TestFeaturesIgnoreBadTowers(t *testing.T) {
+	ev := &Event{Towers: []Tower{
+		{ET: math.NaN(), Phi: 0},
+		{ET: math.Inf(1), Phi: 0},
+		{ET: 10, Eta: math.NaN()},
+		{ET: 10, Phi: math.Inf(-1)},
+		{ET: -3, Phi: 0}, // negative E_T is never used
+		{ET: 12, Phi: 0},
+	}}
+	var f Features
+	ComputeFeatures(ev, FeatureConfig{}, &f)
+	if f.Bad != 4 || f.Used != 1 || f.SumET != 12 || f.MET != 12 {
+		t.Fatalf("bad %d used %d sumET %v MET %v, want 4, 1, 12, 12", f.Bad, f.Used, f.SumET, f.MET)
+	}
+}
+
+func TestEmptyEventHasZeroMETPhi(t *testing.T) {
+	var f Features
+	ComputeFeatures(&Event{}, FeatureConfig{}, &f)
+	if f.MET != 0 || f.METPhi != 0 || math.Signbit(f.METx) {
+		t.Fatalf("empty event: MET %v phi %v METx %v, want 0, 0, +0", f.MET, f.METPhi, f.METx)
+	}
+}
+
+// A Features value reused for new events must not carry anything over.
+func TestFeaturesReuse(t *testing.T) {
+	g := lanternGrid()
+	jets, _ := NewWindowFinder(WindowConfig{Seed: 5})
+	cfg := FeatureConfig{Grid: g, Collections: []CollectionConfig{{Name: "jets", Algorithm: jets}}}
+	var f Features
+	ComputeFeatures(&Event{Towers: []Tower{cellTower(g, 0, 40, 10, 50)}}, cfg, &f)
+	if n := f.Collection("jets").Len(); n != 1 {
+		t.Fatalf("first event: %d jets, want 1", n)
+	}
+	ComputeFeatures(&Event{Towers: []Tower{cellTower(g, 0, 20, 30, 7)}}, cfg, &f)
+	c := f.Collection("jets")
+	if c.Len() != 1 || c.At(0, 0) != 7 {
+		t.Fatalf("second event: %d jets, first E_T %v; want one jet of 7 GeV", c.Len(), c.At(0, 0))
+	}
+	if ht, _ := f.Scalar("ht"); ht != 7 {
+		t.Fatalf("HT %v, want 7", ht)
+	}
+}

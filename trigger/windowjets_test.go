@@ -1,0 +1,139 @@
+package trigger
+
+import (
+	"math"
+	"testing"
+)
+
+func findJets(t *testing.T, cfg WindowConfig, towers ...Tower) (*Collection, float64) {
+	t.Helper()
+	w, err := NewWindowFinder(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var f Features
+	ComputeFeatures(&Event{Towers: towers}, FeatureConfig{Grid: lanternGrid(), Collections: []CollectionConfig{{Name: "jets", Algorithm: w}}}, &f)
+	ht, _ := f.Scalar("ht")
+	return f.Collection("jets"), ht
+}
+
+type jetWant struct{ et, eta, phi float64 }
+
+func checkJets(t *testing.T, c *Collection, want ...jetWant) {
+	t.Helper()
+	if c.Len() != len(want) {
+		t.Fatalf("%d jets, want %d", c.Len(), len(want))
+	}
+	for i, w := range want {
+		et, eta, phi := c.At(i, 0), c.At(i, 1), c.At(i, 2)
+		if !near(et, w.et, 1e-9) || !near(eta, w.eta, 1e-9) || !near(phi, w.phi, 1e-9) {
+			t.Errorf("jet %d: (et %v, eta %v, phi %v), want (%v, %v, %v)", i, et, eta, phi, w.et, w.eta, w.phi)
+		}
+	}
+}
+
+func TestWindowJetCluster(t *testing.T) {
+	g := lanternGrid()
+	step := 2 * math.Pi / 64
+	// Cell (40, 10) holds 30 GeV EM + 20 GeV HAD = 50 GeV; (41, 10) 20 GeV;
+	// (40, 11) 10 GeV. The window on (40, 10) sums 80 GeV. Its neighbours'
+	// windows hold the same three cells, also 80 GeV, but cooler centres,
+	// so (40, 10) is the jet.
+	// eta centres: -4 + 40.5*0.1 = 0.05 and 0.15, so
+	// eta = (50*0.05 + 20*0.15 + 10*0.05)/80 = 6/80 = 0.075.
+	// phi: centre -pi + 10.5*step, plus 10 GeV one step up: + 10*step/80.
+	c, ht := findJets(t, WindowConfig{Seed: 5},
+		cellTower(g, 0, 40, 10, 30), cellTower(g, 1, 40, 10, 20),
+		cellTower(g, 0, 41, 10, 20), cellTower(g, 1, 40, 11, 10))
+	checkJets(t, c, jetWant{80, 0.075, -math.Pi + 10.5*step + step/8})
+	if ht != 80 {
+		t.Errorf("HT %v, want 80", ht)
+	}
+}
+
+func TestWindowJetPhiSeam(t *testing.T) {
+	g := lanternGrid()
+	step := 2 * math.Pi / 64
+	eta := g.EtaCentre(40)
+	t.Run("window wraps", func(t *testing.T) {
+		// 50 GeV at iphi 63 and 30 GeV at iphi 0: one window holds both.
+		// phi = (pi - step/2) + 30*step/80 = pi - step/8.
+		c, _ := findJets(t, WindowConfig{Seed: 5}, cellTower(g, 0, 40, 63, 50), cellTower(g, 0, 40, 0, 30))
+		checkJets(t, c, jetWant{80, eta, math.Pi - step/8})
+	})
+	t.Run("centroid crosses", func(t *testing.T) {
+		// iphi 62: 1 GeV, 63: 5 GeV, 0: 20 GeV. Window 63 sums 26 GeV and
+		// beats window 0 (25 GeV). Its centroid is (pi - step/2) +
+		// step*(20 - 1)/26, past +pi, so it wraps to -pi + (19/26 - 1/2) step.
+		c, _ := findJets(t, WindowConfig{Seed: 5}, cellTower(g, 0, 40, 62, 1), cellTower(g, 0, 40, 63, 5), cellTower(g, 0, 40, 0, 20))
+		checkJets(t, c, jetWant{26, eta, -math.Pi + (19.0/26-0.5)*step})
+	})
+	t.Run("no wrap in eta", func(t *testing.T) {
+		// Towers at the two eta edges stay apart: two jets of 30 GeV.
+		c, _ := findJets(t, WindowConfig{Seed: 5}, cellTower(g, 0, 0, 5, 30), cellTower(g, 0, 79, 5, 29))
+		checkJets(t, c, jetWant{30, g.EtaCentre(0), g.PhiCentre(5)}, jetWant{29, g.EtaCentre(79), g.PhiCentre(5)})
+	})
+}
+
+func TestWindowJetsTwoClusters(t *testing.T) {
+	g := lanternGrid()
+	step := 2 * math.Pi / 64
+	// 60 GeV alone at (20, 5); 35 + 10 GeV at (60, 40) and (60, 41).
+	c, ht := findJets(t, WindowConfig{Seed: 5, MinET: 20, HTMin: 50},
+		cellTower(g, 0, 60, 40, 35), cellTower(g, 0, 60, 41, 10), cellTower(g, 1, 20, 5, 60))
+	checkJets(t, c,
+		jetWant{60, g.EtaCentre(20), g.PhiCentre(5)},
+		jetWant{45, g.EtaCentre(60), g.PhiCentre(40) + 10*step/45})
+	if ht != 60 {
+		t.Errorf("HT over jets >= 50 GeV = %v, want 60", ht)
+	}
+	// min_et drops the second jet.
+	c, _ = findJets(t, WindowConfig{Seed: 5, MinET: 50}, cellTower(g, 0, 60, 40, 35), cellTower(g, 0, 60, 41, 10), cellTower(g, 1, 20, 5, 60))
+	if c.Len() != 1 {
+		t.Errorf("min_et 50 GeV: %d jets, want 1", c.Len())
+	}
+	// The seed applies to the central cell: 4 GeV cells make no jet with a
+	// 5 GeV seed, however much they add up to.
+	c, _ = findJets(t, WindowConfig{Seed: 5}, cellTower(g, 0, 30, 30, 4), cellTower(g, 0, 30, 31, 4), cellTower(g, 0, 31, 30, 4))
+	if c.Len() != 0 {
+		t.Errorf("sub-seed cells: %d jets, want 0", c.Len())
+	}
+}
+
+func TestWindowJetTiesDoNotDoubleCount(t *testing.T) {
+	g := lanternGrid()
+	step := 2 * math.Pi / 64
+	t.Run("two equal cells", func(t *testing.T) {
+		// 40 GeV at (40, 10) and at (40, 11): windows on both sum 80 GeV
+		// with equal centres; the lower index, (40, 10), takes the jet.
+		c, _ := findJets(t, WindowConfig{Seed: 5}, cellTower(g, 0, 40, 10, 40), cellTower(g, 0, 40, 11, 40))
+		checkJets(t, c, jetWant{80, g.EtaCentre(40), g.PhiCentre(10) + step/2})
+	})
+	t.Run("equal 2x2 block", func(t *testing.T) {
+		c, _ := findJets(t, WindowConfig{Seed: 5},
+			cellTower(g, 0, 40, 10, 25), cellTower(g, 0, 40, 11, 25), cellTower(g, 0, 41, 10, 25), cellTower(g, 0, 41, 11, 25))
+		checkJets(t, c, jetWant{100, g.EtaCentre(40) + 0.05, g.PhiCentre(10) + step/2})
+	})
+	t.Run("equal cells across the seam", func(t *testing.T) {
+		c, _ := findJets(t, WindowConfig{Seed: 5}, cellTower(g, 0, 40, 63, 40), cellTower(g, 0, 40, 0, 40))
+		if c.Len() != 1 || c.At(0, 0) != 80 {
+			t.Fatalf("%d jets, want one of 80 GeV", c.Len())
+		}
+	})
+}
+
+func TestNewWindowFinderRejectsBadEnergies(t *testing.T) {
+	for _, cfg := range []WindowConfig{{Seed: -1}, {MinET: math.NaN()}, {HTMin: math.Inf(1)}} {
+		if _, err := NewWindowFinder(cfg); err == nil {
+			t.Errorf("NewWindowFinder(%+v) accepted", cfg)
+		}
+	}
+}
+
+func TestWindowFinderConformance(t *testing.T) {
+	w, err := NewWindowFinder(WindowConfig{Seed: 3, MinET: 10})
+	if err != nil {
+		t.Fatal(err)
+	}
+	checkAlgorithm(t, w, lanternGrid())
+}
