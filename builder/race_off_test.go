@@ -1,0 +1,5 @@
+//go:build !race
+
+package builder
+
+const raceEnabled = false
