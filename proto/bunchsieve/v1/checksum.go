@@ -4,69 +4,93 @@ import (
 	"encoding/binary"
 	"hash/crc32"
 	"math"
+	"sync"
 )
 
-// castagnoli is the CRC-32C table; the polynomial has hardware support on
-// amd64 and arm64, which keeps checksumming off the profile.
+// castagnoli is the CRC-32C table; crc32 uses the processor's CRC
+// instructions for it where there are any.
 var castagnoli = crc32.MakeTable(crc32.Castagnoli)
 
-// FragmentChecksum returns the CRC-32C of f's canonical content: source_id,
-// run, orbit, bcid, timestamp_ns and status as little-endian fixed-width
-// integers, then the payload (calorimeter: each tower index and ET count as
-// uint32 pairs; muon: station as uint32 and x, y, z as IEEE-754 float32 bits).
-// The checksum field itself is not covered. It is safe for concurrent use.
-func FragmentChecksum(f *Fragment) uint32 {
-	var buf [64]byte
-	b := buf[:0]
-	b = binary.LittleEndian.AppendUint32(b, f.GetSourceId())
-	b = binary.LittleEndian.AppendUint32(b, f.GetRun())
-	b = binary.LittleEndian.AppendUint64(b, f.GetOrbit())
-	b = binary.LittleEndian.AppendUint32(b, f.GetBcid())
-	b = binary.LittleEndian.AppendUint64(b, uint64(f.GetTimestampNs()))
-	b = binary.LittleEndian.AppendUint32(b, f.GetStatus())
-	sum := crc32.Update(0, castagnoli, b)
-	switch p := f.GetPayload().(type) {
-	case *Fragment_Calo:
-		sum = updateCalo(sum, p.Calo)
-	case *Fragment_Muon:
-		for _, h := range p.Muon.GetHits() {
-			b = b[:0]
-			b = binary.LittleEndian.AppendUint32(b, h.GetStation())
-			b = binary.LittleEndian.AppendUint32(b, math.Float32bits(h.GetXMm()))
-			b = binary.LittleEndian.AppendUint32(b, math.Float32bits(h.GetYMm()))
-			b = binary.LittleEndian.AppendUint32(b, math.Float32bits(h.GetZMm()))
-			sum = crc32.Update(sum, castagnoli, b)
-		}
-	}
-	return sum
+// checksumBuf is the scratch size a Checksummer streams bytes through;
+// larger payloads go through in pieces.
+const checksumBuf = 1024
+
+// Checksummer computes fragment checksums through a scratch buffer of its
+// own, so that the hot paths of the readout and the builder checksum
+// without allocating. The zero value is ready; a Checksummer is not safe
+// for concurrent use.
+type Checksummer struct {
+	buf []byte
 }
 
-func updateCalo(sum uint32, c *CaloPayload) uint32 {
-	towers, counts := c.GetTowers(), c.GetEtCounts()
-	var buf [64]byte
-	b := buf[:0]
-	for i := range towers {
-		var n uint32
-		if i < len(counts) {
-			n = counts[i]
+// Sum returns the CRC-32C of f's canonical content: source_id, run,
+// orbit, bcid, timestamp_ns and status as little-endian fixed-width
+// integers, then the payload (calorimeter: each tower index and ET count
+// as uint32 pairs, then any surplus counts; muon: station as uint32 and x,
+// y, z as IEEE-754 float32 bits). The checksum field itself is not
+// covered. See docs/wire-format.md.
+func (c *Checksummer) Sum(f *Fragment) uint32 {
+	if c.buf == nil {
+		c.buf = make([]byte, checksumBuf)
+	}
+	le := binary.LittleEndian
+	buf := c.buf
+	le.PutUint32(buf[0:], f.GetSourceId())
+	le.PutUint32(buf[4:], f.GetRun())
+	le.PutUint64(buf[8:], f.GetOrbit())
+	le.PutUint32(buf[16:], f.GetBcid())
+	le.PutUint64(buf[20:], uint64(f.GetTimestampNs()))
+	le.PutUint32(buf[28:], f.GetStatus())
+	n := 32
+	var sum uint32
+	switch p := f.GetPayload().(type) {
+	case *Fragment_Calo:
+		towers, counts := p.Calo.GetTowers(), p.Calo.GetEtCounts()
+		for i, tw := range towers {
+			if n+8 > len(buf) {
+				sum, n = crc32.Update(sum, castagnoli, buf[:n]), 0
+			}
+			var v uint32
+			if i < len(counts) {
+				v = counts[i]
+			}
+			le.PutUint32(buf[n:], tw)
+			le.PutUint32(buf[n+4:], v)
+			n += 8
 		}
-		b = binary.LittleEndian.AppendUint32(b, towers[i])
-		b = binary.LittleEndian.AppendUint32(b, n)
-		if len(b) == len(buf) {
-			sum = crc32.Update(sum, castagnoli, b)
-			b = b[:0]
+		// A count without a tower still changes the sum, so a payload whose
+		// two arrays disagree in length cannot pass as intact.
+		for i := len(towers); i < len(counts); i++ {
+			if n+4 > len(buf) {
+				sum, n = crc32.Update(sum, castagnoli, buf[:n]), 0
+			}
+			le.PutUint32(buf[n:], counts[i])
+			n += 4
+		}
+	case *Fragment_Muon:
+		for _, h := range p.Muon.GetHits() {
+			if n+16 > len(buf) {
+				sum, n = crc32.Update(sum, castagnoli, buf[:n]), 0
+			}
+			le.PutUint32(buf[n:], h.GetStation())
+			le.PutUint32(buf[n+4:], math.Float32bits(h.GetXMm()))
+			le.PutUint32(buf[n+8:], math.Float32bits(h.GetYMm()))
+			le.PutUint32(buf[n+12:], math.Float32bits(h.GetZMm()))
+			n += 16
 		}
 	}
-	// A count without a tower still changes the sum, so a payload whose two
-	// arrays disagree in length cannot pass as intact.
-	for i := len(towers); i < len(counts); i++ {
-		b = binary.LittleEndian.AppendUint32(b, counts[i])
-		if len(b) >= len(buf)-4 {
-			sum = crc32.Update(sum, castagnoli, b)
-			b = b[:0]
-		}
-	}
-	return crc32.Update(sum, castagnoli, b)
+	return crc32.Update(sum, castagnoli, buf[:n])
+}
+
+var checksummers = sync.Pool{New: func() any { return new(Checksummer) }}
+
+// FragmentChecksum returns Checksummer.Sum(f) using a pooled scratch
+// buffer. It is safe for concurrent use.
+func FragmentChecksum(f *Fragment) uint32 {
+	c := checksummers.Get().(*Checksummer)
+	sum := c.Sum(f)
+	checksummers.Put(c)
+	return sum
 }
 
 // Seal sets f's checksum from its content.
