@@ -1,0 +1,301 @@
+// Package assembler is the event-builder service: it feeds fragment batches
+// from NATS into the builder library, publishes built events in batches to
+// the selection, and exports the builder's accounting as metrics.
+package assembler
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/prometheus/client_golang/prometheus"
+	"google.golang.org/protobuf/proto"
+
+	"github.com/bunchsieve/bunchsieve/builder"
+	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+	"github.com/bunchsieve/bunchsieve/services/telemetry"
+	"github.com/bunchsieve/bunchsieve/services/transport"
+)
+
+// Config sets up the builder service. Builder holds the library settings
+// (expected sources, lateness, window, ...).
+type Config struct {
+	Builder builder.Config
+	// Instance is this builder's share, 0..Instances-1.
+	Instance int
+	// Instances is the number of builders sharing the crossings; zero
+	// means 1.
+	Instances int
+	// LumiSliceOrbits is the length of a lumi slice in orbits; zero means
+	// 2^18.
+	LumiSliceOrbits uint64
+	// BatchEvents is how many events one published batch carries at most;
+	// zero means 64.
+	BatchEvents int
+	// Tick is how often watermarks and dead sources are checked and partly
+	// filled batches published; zero means 2 ms.
+	Tick     time.Duration
+	Subjects transport.Subjects
+	// Logger receives rate-limited reports of discarded fragments; nil
+	// means slog.Default().
+	Logger *slog.Logger
+}
+
+// maxBatchBytes keeps an event batch well under the NATS payload limit.
+const maxBatchBytes = 768 << 10
+
+// Assembler runs one builder instance. Run may be called once; Stats and
+// the counters are safe to read concurrently.
+type Assembler struct {
+	cfg Config
+	nc  *nats.Conn
+	m   *metrics
+	log *slog.Logger
+
+	mu        sync.Mutex // guards everything below, and the builder
+	b         *builder.Builder
+	out       *pb.EventBatch
+	outBytes  int
+	seq       uint64
+	emitted   uint64
+	ended     map[uint32]bool
+	pubErr    error
+	lastLog   time.Time
+	suppress  int
+	undecoded uint64
+
+	done    chan struct{}
+	ready   chan struct{}
+	dropped atomic.Uint64
+
+	Latency telemetry.Latency // first fragment to emission
+}
+
+// New returns a builder service on nc with metrics on reg.
+func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Assembler, error) {
+	if cfg.Instances == 0 {
+		cfg.Instances = 1
+	}
+	if cfg.Instance < 0 || cfg.Instance >= cfg.Instances {
+		return nil, fmt.Errorf("assembler: instance %d of %d, want 0..%d", cfg.Instance, cfg.Instances, cfg.Instances-1)
+	}
+	if cfg.LumiSliceOrbits == 0 {
+		cfg.LumiSliceOrbits = 1 << 18
+	}
+	if cfg.BatchEvents == 0 {
+		cfg.BatchEvents = 64
+	}
+	if cfg.Tick == 0 {
+		cfg.Tick = 2 * time.Millisecond
+	}
+	if cfg.Logger == nil {
+		cfg.Logger = slog.Default()
+	}
+	if err := cfg.Subjects.Validate(); err != nil {
+		return nil, err
+	}
+	a := &Assembler{cfg: cfg, nc: nc, log: cfg.Logger, ended: make(map[uint32]bool), done: make(chan struct{}), ready: make(chan struct{}),
+		out: &pb.EventBatch{Builder: uint32(cfg.Instance)}}
+	b, err := builder.New(cfg.Builder, a.emit)
+	if err != nil {
+		return nil, fmt.Errorf("assembler: %w", err)
+	}
+	a.b = b
+	m, err := newMetrics(reg, a)
+	if err != nil {
+		return nil, err
+	}
+	a.m = m
+	return a, nil
+}
+
+// Run subscribes to this instance's share of the fragments and builds
+// events until every expected source has sent its end-of-run marker (or ctx
+// ends, or Finish is called), then flushes the builder and publishes the
+// end-of-run batch. It returns the first publishing error, if any.
+func (a *Assembler) Run(ctx context.Context) error {
+	sub, err := transport.Subscribe(a.nc, a.cfg.Subjects.FragmentsOf(a.cfg.Instance), "", a.onMsg)
+	if err != nil {
+		return fmt.Errorf("assembler: %w", err)
+	}
+	if err := a.nc.Flush(); err != nil {
+		return fmt.Errorf("assembler: subscribe: %w", err)
+	}
+	close(a.ready)
+	defer sub.Unsubscribe()
+	tick := time.NewTicker(a.cfg.Tick)
+	defer tick.Stop()
+	finished := false
+	for !finished {
+		select {
+		case <-ctx.Done():
+			finished = true
+		case <-a.done:
+			finished = true
+		case <-tick.C:
+			a.mu.Lock()
+			a.b.Advance(time.Now().UnixNano())
+			err := a.publishLocked(false)
+			a.noteDrops(sub)
+			a.mu.Unlock()
+			if err != nil {
+				return err
+			}
+		}
+	}
+	_ = sub.Unsubscribe()
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	a.noteDrops(sub)
+	a.b.Flush()
+	if err := a.publishLocked(false); err != nil {
+		return err
+	}
+	if err := a.publishLocked(true); err != nil {
+		return err
+	}
+	if err := a.nc.Flush(); err != nil {
+		return fmt.Errorf("assembler: flush: %w", err)
+	}
+	return a.pubErr
+}
+
+// Ready is closed once Run has subscribed and the server has confirmed
+// it: fragments published after that reach this builder.
+func (a *Assembler) Ready() <-chan struct{} { return a.ready }
+
+// onMsg is the subscription handler; NATS calls it from one goroutine.
+func (a *Assembler) onMsg(msg *nats.Msg) {
+	arrival := time.Now().UnixNano()
+	var batch pb.FragmentBatch
+	if err := proto.Unmarshal(msg.Data, &batch); err != nil {
+		a.mu.Lock()
+		a.undecoded++
+		a.m.undecodable.Inc()
+		a.logDiscard(fmt.Errorf("undecodable batch on %s: %v", msg.Subject, err))
+		a.mu.Unlock()
+		return
+	}
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	for _, f := range batch.Fragments {
+		if err := a.b.Add(f, arrival, batch.SentUnixNs); err != nil {
+			if errors.Is(err, builder.ErrWindowFull) {
+				// Block policy: make room by advancing, then retry once; a
+				// second refusal is counted by the builder.
+				a.b.Advance(arrival)
+				err = a.b.Add(f, arrival, batch.SentUnixNs)
+			}
+			if err != nil {
+				a.logDiscard(err)
+			}
+		}
+	}
+	if batch.EndOfRun && !a.ended[batch.SourceId] {
+		a.ended[batch.SourceId] = true
+		if len(a.ended) >= len(a.cfg.Builder.Sources) {
+			close(a.done)
+		}
+	}
+	if err := a.publishLocked(false); err != nil && a.pubErr == nil {
+		a.pubErr = err
+	}
+}
+
+// logDiscard reports discarded fragments at most once a second, saying how
+// many reports it suppressed in between.
+func (a *Assembler) logDiscard(err error) {
+	now := time.Now()
+	if now.Sub(a.lastLog) < time.Second {
+		a.suppress++
+		return
+	}
+	a.log.Warn("fragment discarded", "instance", a.cfg.Instance, "error", err, "suppressed_since_last", a.suppress)
+	a.lastLog, a.suppress = now, 0
+}
+
+// emit is the builder's callback: it appends the event to the outgoing
+// batch. Called with a.mu held.
+func (a *Assembler) emit(ev *builder.Event) {
+	now := time.Now()
+	be := &pb.BuiltEvent{
+		Run: ev.Run, Orbit: ev.Orbit, Bcid: ev.Bcid, TimestampNs: ev.TimestampNs,
+		LumiSlice:      uint32(ev.Orbit/a.cfg.LumiSliceOrbits) + 1,
+		Fragments:      append([]*pb.Fragment(nil), ev.Fragments...),
+		MissingSources: append([]uint32(nil), ev.Missing...),
+		Flags:          ev.Flags,
+		ReadoutUnixNs:  ev.EarliestSentNs,
+		BuiltUnixNs:    now.UnixNano(),
+	}
+	lat := time.Duration(now.UnixNano() - ev.FirstArrivalNs)
+	a.Latency.Record(lat)
+	a.m.latency.Observe(lat.Seconds())
+	a.out.Events = append(a.out.Events, be)
+	a.outBytes += proto.Size(be)
+	a.emitted++
+	if len(a.out.Events) >= a.cfg.BatchEvents || a.outBytes >= maxBatchBytes {
+		if err := a.publishLocked(false); err != nil && a.pubErr == nil {
+			a.pubErr = err
+		}
+	}
+}
+
+func (a *Assembler) publishLocked(end bool) error {
+	if len(a.out.Events) == 0 && !end {
+		return nil
+	}
+	a.out.Sequence = a.seq
+	a.out.EndOfRun = end
+	if end {
+		a.out.EventsTotal = a.emitted
+	}
+	data, err := proto.Marshal(a.out)
+	if err != nil {
+		return fmt.Errorf("assembler: encode event batch: %w", err)
+	}
+	if err := a.nc.Publish(a.cfg.Subjects.Built(), data); err != nil {
+		return fmt.Errorf("assembler: publish events: %w", err)
+	}
+	a.seq++
+	a.m.batches.Inc()
+	a.out.Events = a.out.Events[:0]
+	a.outBytes = 0
+	return nil
+}
+
+func (a *Assembler) noteDrops(sub *nats.Subscription) {
+	if n, err := sub.Dropped(); err == nil && uint64(n) > a.dropped.Load() {
+		a.m.dropped.Add(float64(uint64(n) - a.dropped.Load()))
+		a.dropped.Store(uint64(n))
+	}
+}
+
+// Stats returns a snapshot of the builder's accounting.
+func (a *Assembler) Stats() builder.Stats {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return a.b.Stats()
+}
+
+// Emitted returns the number of events published so far.
+func (a *Assembler) Emitted() uint64 {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return a.emitted
+}
+
+// DroppedMessages returns how many fragment batches NATS dropped because
+// this subscriber fell behind. Their fragments never reached the builder.
+func (a *Assembler) DroppedMessages() uint64 { return a.dropped.Load() }
+
+// UndecodableMessages returns how many batches could not be decoded.
+func (a *Assembler) UndecodableMessages() uint64 {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return a.undecoded
+}

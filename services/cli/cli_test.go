@@ -1,0 +1,285 @@
+package cli
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"os"
+	"path/filepath"
+	"strings"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/bunchsieve/bunchsieve/services/summary"
+	"github.com/bunchsieve/bunchsieve/services/transport"
+)
+
+// runCLI runs the command line in-process with a deadline, so a hang fails
+// the test instead of stalling it.
+func runCLI(t *testing.T, timeout time.Duration, args ...string) (code int, stdout, stderr string) {
+	t.Helper()
+	ctx, cancel := context.WithTimeout(context.Background(), timeout)
+	defer cancel()
+	var out, errb bytes.Buffer
+	done := make(chan int, 1)
+	go func() { done <- run(ctx, args, &out, &errb) }()
+	select {
+	case code = <-done:
+	case <-time.After(timeout + 10*time.Second):
+		t.Fatalf("bunchsieve %s did not return", strings.Join(args, " "))
+	}
+	return code, out.String(), errb.String()
+}
+
+func readSummary(t *testing.T, path string) summary.Summary {
+	t.Helper()
+	data, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var s summary.Summary
+	if err := json.Unmarshal(data, &s); err != nil {
+		t.Fatal(err)
+	}
+	return s
+}
+
+// Readout, build and select as separate services over one NATS server give
+// exactly the decision counts of `up` for the same seed and crossings.
+func TestSeparateServicesMatchUp(t *testing.T) {
+	const crossings, seed = "6000", "11"
+	dir := t.TempDir()
+	upJSON := filepath.Join(dir, "up.json")
+	if code, _, stderr := runCLI(t, time.Minute, "up", "--crossings", crossings, "--seed", seed, "--rate", "0",
+		"--quiet", "--metrics-addr", "", "--summary-json", upJSON); code != 0 {
+		t.Fatalf("up: exit %d: %s", code, stderr)
+	}
+	up := readSummary(t, upJSON)
+
+	srv, err := transport.Embedded("127.0.0.1", -1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
+	url := srv.ClientURL()
+	base := srv.NumSubscriptions()
+
+	var wg sync.WaitGroup
+	results := map[string]int{}
+	var mu sync.Mutex
+	start := func(name string, args ...string) {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			code, _, stderr := runCLI(t, time.Minute, args...)
+			mu.Lock()
+			results[name] = code
+			mu.Unlock()
+			if code != 0 {
+				t.Errorf("%s: exit %d: %s", name, code, stderr)
+			}
+		}()
+	}
+	selJSON, buildJSON := filepath.Join(dir, "select.json"), filepath.Join(dir, "build.json")
+	start("select", "select", "--nats", url, "--summary-json", selJSON)
+	start("build", "build", "--nats", url, "--summary-json", buildJSON)
+	deadline := time.Now().Add(10 * time.Second)
+	for srv.NumSubscriptions() < base+2 {
+		if time.Now().After(deadline) {
+			t.Fatal("builder and selection did not subscribe")
+		}
+		time.Sleep(5 * time.Millisecond)
+	}
+	start("readout", "readout", "--nats", url, "--crossings", crossings, "--seed", seed, "--rate", "0")
+	wg.Wait()
+	if t.Failed() {
+		return
+	}
+	sel, build := readSummary(t, selJSON), readSummary(t, buildJSON)
+	if build.EventsBuilt != up.EventsBuilt || build.Fragments != up.Fragments {
+		t.Errorf("builder: %d events %+v; up: %d events %+v", build.EventsBuilt, build.Fragments, up.EventsBuilt, up.Fragments)
+	}
+	if sel.EventsDecided != up.EventsDecided || sel.Accepted != up.Accepted || sel.MenuHash != up.MenuHash {
+		t.Errorf("select decided %d accepted %d (%s); up decided %d accepted %d (%s)",
+			sel.EventsDecided, sel.Accepted, sel.MenuHash, up.EventsDecided, up.Accepted, up.MenuHash)
+	}
+	if len(sel.Rules) != len(up.Rules) {
+		t.Fatalf("select has %d rules, up %d", len(sel.Rules), len(up.Rules))
+	}
+	for i := range sel.Rules {
+		if sel.Rules[i] != up.Rules[i] {
+			t.Errorf("rule %d: separate %+v, up %+v", i, sel.Rules[i], up.Rules[i])
+		}
+	}
+}
+
+// Bad input to any flag gives one line naming the problem and a non-zero
+// exit, never a panic or a hang.
+func TestBadInputGivesOneLineError(t *testing.T) {
+	dir := t.TempDir()
+	unreadable := filepath.Join(dir, "no-such-menu.yaml")
+	garbage := filepath.Join(dir, "garbage.yaml")
+	if err := os.WriteFile(garbage, []byte("rules: [unclosed\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	cases := []struct {
+		args []string
+		want string
+	}{
+		{[]string{"launch"}, "unknown command"},
+		{[]string{"up", "--rate", "-5"}, "--rate"},
+		{[]string{"up", "--rate", "fast"}, "rate"},
+		{[]string{"up", "--sources", "0"}, "--sources"},
+		{[]string{"up", "--duration", "-1s"}, "--duration"},
+		{[]string{"up", "--crossings", "0"}, "--crossings"},
+		{[]string{"up", "--menu", unreadable, "--duration", "1s"}, "no-such-menu.yaml"},
+		{[]string{"up", "--menu", garbage, "--duration", "1s"}, "garbage.yaml"},
+		{[]string{"up", "--metrics-addr", "nonsense"}, "--metrics-addr"},
+		{[]string{"up", "--nats-listen", "0.0.0.0:4222"}, "loopback"},
+		{[]string{"up", "--config", unreadable}, "no-such-menu.yaml"},
+		{[]string{"up", "--no-such-flag"}, "no-such-flag"},
+		{[]string{"up", "extra"}, "unexpected argument"},
+		{[]string{"build", "--nats", "nats://127.0.0.1:1"}, "127.0.0.1:1"},
+		{[]string{"select", "--nats", "nats://127.0.0.1:1"}, "127.0.0.1:1"},
+		{[]string{"readout", "--nats", "nats://127.0.0.1:1", "--crossings", "10"}, "127.0.0.1:1"},
+		{[]string{"build", "--instance", "2", "--builders", "2"}, "--instance"},
+		{[]string{"menu"}, "menu check"},
+		{[]string{"menu", "check"}, "FILE"},
+		{[]string{"menu", "check", unreadable}, "no-such-menu.yaml"},
+	}
+	for _, c := range cases {
+		code, _, stderr := runCLI(t, 20*time.Second, c.args...)
+		lines := strings.Split(strings.TrimRight(stderr, "\n"), "\n")
+		if code == 0 || len(lines) != 1 || !strings.Contains(stderr, c.want) || strings.Contains(stderr, "panic") {
+			t.Errorf("bunchsieve %s: exit %d, stderr %q; want one line naming %q", strings.Join(c.args, " "), code, stderr, c.want)
+		}
+	}
+}
+
+func TestHelpAndVersion(t *testing.T) {
+	if code, out, _ := runCLI(t, 5*time.Second, "help"); code != 0 || !strings.Contains(out, "up") {
+		t.Errorf("help: exit %d, %q", code, out)
+	}
+	if code, out, _ := runCLI(t, 5*time.Second, "up", "--help"); code != 0 || !strings.Contains(out, "-duration") {
+		t.Errorf("up --help: exit %d, %q", code, out)
+	}
+}
+
+// startChain starts select and build against a fresh in-process server and
+// returns its URL and a wait function giving their summaries.
+func startChain(t *testing.T, dir string) (url string, wait func() (sel, build summary.Summary)) {
+	t.Helper()
+	srv, err := transport.Embedded("127.0.0.1", -1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
+	url = srv.ClientURL()
+	base := srv.NumSubscriptions()
+	selJSON, buildJSON := filepath.Join(dir, "select.json"), filepath.Join(dir, "build.json")
+	var wg sync.WaitGroup
+	for _, args := range [][]string{
+		{"select", "--nats", url, "--summary-json", selJSON},
+		{"build", "--nats", url, "--summary-json", buildJSON},
+	} {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			if code, _, stderr := runCLI(t, time.Minute, args...); code != 0 {
+				t.Errorf("%s: exit %d: %s", args[0], code, stderr)
+			}
+		}()
+	}
+	deadline := time.Now().Add(10 * time.Second)
+	for srv.NumSubscriptions() < base+2 {
+		if time.Now().After(deadline) {
+			t.Fatal("builder and selection did not subscribe")
+		}
+		time.Sleep(5 * time.Millisecond)
+	}
+	return url, func() (summary.Summary, summary.Summary) {
+		wg.Wait()
+		if t.Failed() {
+			t.FailNow()
+		}
+		return readSummary(t, selJSON), readSummary(t, buildJSON)
+	}
+}
+
+// A stream written by record and replayed with readout --replay gives
+// exactly the summary of the generator run with the same seed.
+func TestRecordReplayMatchesGenerator(t *testing.T) {
+	dir := t.TempDir()
+	stream := filepath.Join(dir, "run.bss")
+	if code, out, stderr := runCLI(t, time.Minute, "record", "--crossings", "4000", "--seed", "5", "--out", stream); code != 0 {
+		t.Fatalf("record: exit %d: %s %s", code, out, stderr)
+	}
+	upJSON := filepath.Join(dir, "up.json")
+	if code, _, stderr := runCLI(t, time.Minute, "up", "--crossings", "4000", "--seed", "5", "--rate", "0",
+		"--quiet", "--metrics-addr", "", "--summary-json", upJSON); code != 0 {
+		t.Fatalf("up: exit %d: %s", code, stderr)
+	}
+	up := readSummary(t, upJSON)
+	url, wait := startChain(t, dir)
+	replayJSON := filepath.Join(dir, "replay.json")
+	if code, _, stderr := runCLI(t, time.Minute, "readout", "--nats", url, "--replay", stream, "--speed", "max", "--summary-json", replayJSON); code != 0 {
+		t.Fatalf("replay: exit %d: %s", code, stderr)
+	}
+	sel, build := wait()
+	replay := readSummary(t, replayJSON)
+	if replay.Crossings != up.Crossings || replay.Seed != up.Seed {
+		t.Errorf("replay crossings %d seed %d; up %d %d", replay.Crossings, replay.Seed, up.Crossings, up.Seed)
+	}
+	if build.EventsBuilt != up.EventsBuilt || build.EventsComplete != up.EventsComplete || build.Fragments != up.Fragments {
+		t.Errorf("replay built %d %+v; up %d %+v", build.EventsBuilt, build.Fragments, up.EventsBuilt, up.Fragments)
+	}
+	if sel.EventsDecided != up.EventsDecided || sel.Accepted != up.Accepted || len(sel.Rules) != len(up.Rules) {
+		t.Fatalf("replay decided %d accepted %d; up %d %d", sel.EventsDecided, sel.Accepted, up.EventsDecided, up.Accepted)
+	}
+	for i := range sel.Rules {
+		if sel.Rules[i] != up.Rules[i] {
+			t.Errorf("rule %d: replay %+v, up %+v", i, sel.Rules[i], up.Rules[i])
+		}
+	}
+}
+
+// A corrupted and a truncated stream file each give a one-line error with
+// the byte offset, and the batches before the damage are delivered.
+func TestDamagedStreamReplay(t *testing.T) {
+	dir := t.TempDir()
+	stream := filepath.Join(dir, "run.bss")
+	// Enough crossings for several 1 MiB frames, so damage late in the file
+	// leaves whole frames before it.
+	if code, _, stderr := runCLI(t, time.Minute, "record", "--crossings", "30000", "--seed", "9", "--out", stream); code != 0 {
+		t.Fatalf("record: exit %d: %s", code, stderr)
+	}
+	data, err := os.ReadFile(stream)
+	if err != nil {
+		t.Fatal(err)
+	}
+	corrupt := append([]byte(nil), data...)
+	corrupt[len(corrupt)*3/4] ^= 0x10
+	for name, content := range map[string][]byte{"corrupted": corrupt, "truncated": data[:len(data)*3/4]} {
+		t.Run(name, func(t *testing.T) {
+			path := filepath.Join(dir, name+".bss")
+			if err := os.WriteFile(path, content, 0o644); err != nil {
+				t.Fatal(err)
+			}
+			sub := t.TempDir()
+			url, wait := startChain(t, sub)
+			code, _, stderr := runCLI(t, time.Minute, "readout", "--nats", url, "--replay", path, "--speed", "max")
+			lines := strings.Split(strings.TrimRight(stderr, "\n"), "\n")
+			if code == 0 || len(lines) != 1 || !strings.Contains(stderr, "byte offset") || !strings.Contains(stderr, name) {
+				t.Fatalf("exit %d, stderr %q: want one line naming the damage and its byte offset", code, stderr)
+			}
+			_, build := wait()
+			if build.Fragments.Received == 0 || build.EventsBuilt == 0 {
+				t.Fatalf("no batch before the damage was delivered: %+v", build)
+			}
+			if !build.Fragments.Closed() {
+				t.Errorf("accounting open after a damaged replay: %+v", build.Fragments)
+			}
+		})
+	}
+}

@@ -1,0 +1,91 @@
+package cli
+
+import (
+	"context"
+	"fmt"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+	"go.yaml.in/yaml/v3"
+
+	"github.com/bunchsieve/bunchsieve/detector"
+	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+	"github.com/bunchsieve/bunchsieve/services/emulator"
+	"github.com/bunchsieve/bunchsieve/services/recording"
+)
+
+func runRecord(ctx context.Context, e *env, args []string) error {
+	fs := newFlags(e, "record", "--crossings N --out FILE [flags]")
+	var rf runFlags
+	rf.register(fs, "", true)
+	out := fs.String("out", "", "stream `FILE` to write")
+	partitions := fs.Int("builders", 1, "number of builder shares to split the crossings into")
+	var faults faultFlags
+	fs.Var(&faults, "fault", faultHelp)
+	if err := parse(fs, args, 0); err != nil {
+		return err
+	}
+	set := setFlags(fs)
+	cfg, err := rf.resolve(set)
+	if err != nil {
+		return err
+	}
+	if *out == "" {
+		return usagef("--out FILE is required")
+	}
+	if rf.crossings == 0 && rf.duration == 0 {
+		return usagef("give --crossings N (or --duration) so the recording ends")
+	}
+	if set["rate"] {
+		return usagef("--rate does not apply to record: crossings are written as fast as they are made")
+	}
+	if *partitions < 1 {
+		return usagef("--builders %d: want >= 1", *partitions)
+	}
+	cfg.Faults = append(cfg.Faults, faults...)
+	gen, sources, err := newGenerator(cfg)
+	if err != nil {
+		return err
+	}
+	genYAML, err := yaml.Marshal(cfg.Generator)
+	if err != nil {
+		return fmt.Errorf("encode generator settings: %w", err)
+	}
+	detYAML := detector.BuiltinDescriptionYAML()
+	if cfg.Detector != "" {
+		if detYAML, err = readFile(cfg.Detector); err != nil {
+			return err
+		}
+	}
+	w, err := recording.Create(*out, &pb.StreamHeader{
+		Run: cfg.Run, Seed: cfg.Seed, SourceIds: sources, Partitions: uint32(*partitions),
+		BatchCrossings: uint32(cfg.BatchCrossings), Generator: "simple", GeneratorConfig: string(genYAML),
+		Detector: string(detYAML), CreatedUnixNs: time.Now().UnixNano(), Producer: "bunchsieve " + Version,
+	})
+	if err != nil {
+		return err
+	}
+	emu, err := emulator.New(emulator.Config{
+		Run: cfg.Run, Seed: cfg.Seed, Crossings: rf.crossings, BatchCrossings: cfg.BatchCrossings,
+		Partitions: *partitions, Faults: cfg.Faults,
+	}, gen, sources, emulator.FileSink{W: w}, prometheus.NewRegistry())
+	if err != nil {
+		w.Close()
+		return err
+	}
+	if rf.duration > 0 {
+		var cancel context.CancelFunc
+		ctx, cancel = context.WithTimeout(ctx, rf.duration)
+		defer cancel()
+	}
+	start := time.Now()
+	runErr := emu.Run(ctx)
+	w.AddCrossings(emu.Offered())
+	if err := w.Close(); err != nil {
+		return err
+	}
+	t := w.Trailer()
+	fmt.Fprintf(e.stdout, "record: %d crossings, %d batches, %d fragments to %s in %.2fs\n",
+		t.Crossings, t.Batches, t.Fragments, *out, time.Since(start).Seconds())
+	return runErr
+}

@@ -1,0 +1,319 @@
+package cli
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"net"
+	"net/http"
+	"strconv"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+	"github.com/prometheus/client_golang/prometheus/collectors"
+	"github.com/prometheus/client_golang/prometheus/promhttp"
+
+	"github.com/bunchsieve/bunchsieve/detector"
+	"github.com/bunchsieve/bunchsieve/services/assembler"
+	"github.com/bunchsieve/bunchsieve/services/emulator"
+	"github.com/bunchsieve/bunchsieve/services/recording"
+	"github.com/bunchsieve/bunchsieve/services/runconfig"
+	"github.com/bunchsieve/bunchsieve/services/selector"
+	"github.com/bunchsieve/bunchsieve/services/summary"
+	"github.com/bunchsieve/bunchsieve/services/transport"
+)
+
+const defaultNATS = "nats://127.0.0.1:4222"
+
+// serveMetrics serves reg on addr until the returned stop is called.
+func serveMetrics(addr string, reg *prometheus.Registry) (stop func(), err error) {
+	if addr == "" {
+		return func() {}, nil
+	}
+	ln, err := net.Listen("tcp", addr)
+	if err != nil {
+		return nil, fmt.Errorf("metrics address: %w", err)
+	}
+	mux := http.NewServeMux()
+	mux.Handle("/metrics", promhttp.HandlerFor(reg, promhttp.HandlerOpts{Registry: reg}))
+	srv := &http.Server{Handler: mux, ReadHeaderTimeout: 5 * time.Second}
+	go func() { _ = srv.Serve(ln) }()
+	return func() {
+		ctx, cancel := context.WithTimeout(context.Background(), 2*time.Second)
+		defer cancel()
+		_ = srv.Shutdown(ctx)
+	}, nil
+}
+
+func newRegistry() *prometheus.Registry {
+	reg := prometheus.NewRegistry()
+	reg.MustRegister(collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
+	return reg
+}
+
+func finish(e *env, path string, s *summary.Summary) error {
+	s.Print(e.stdout)
+	if path != "" {
+		return s.WriteJSON(path)
+	}
+	return nil
+}
+
+// faultFlags collects repeated --fault flags.
+type faultFlags []emulator.Fault
+
+func (f *faultFlags) String() string { return fmt.Sprintf("%d faults", len(*f)) }
+
+func (f *faultFlags) Set(v string) error {
+	fault, err := emulator.ParseFault(v)
+	if err != nil {
+		return err
+	}
+	*f = append(*f, fault)
+	return nil
+}
+
+const faultHelp = "inject readout faults, e.g. `sources=3+5-7,drop=0.05,duplicate=0.05,corrupt=0.01,delay=0.01,delay_crossings=16,reorder=0.01,stall=1000-5000,clock_skew_ns=40` (repeatable)"
+
+func runReadout(ctx context.Context, e *env, args []string) error {
+	fs := newFlags(e, "readout", "[flags]")
+	var rf runFlags
+	rf.register(fs, "", true)
+	url := fs.String("nats", defaultNATS, "NATS server `URL`")
+	partitions := fs.Int("builders", 1, "number of builder instances sharing the crossings")
+	replay := fs.String("replay", "", "publish the recorded stream `FILE` instead of generating crossings")
+	speed := fs.String("speed", "1", "replay speed: a factor of real time (1 = as recorded) or max")
+	var faults faultFlags
+	fs.Var(&faults, "fault", faultHelp)
+	if err := parse(fs, args, 0); err != nil {
+		return err
+	}
+	set := setFlags(fs)
+	cfg, err := rf.resolve(set)
+	if err != nil {
+		return err
+	}
+	if *partitions < 1 {
+		return usagef("--builders %d: want >= 1", *partitions)
+	}
+	if *replay != "" {
+		for _, f := range []string{"seed", "rate", "crossings", "fault", "sources", "builders", "config"} {
+			if set[f] {
+				return usagef("--%s does not apply to --replay: the stream file fixes it", f)
+			}
+		}
+		factor := 0.0
+		if *speed != "max" {
+			factor, err = strconv.ParseFloat(*speed, 64)
+			if err != nil || !(factor > 0) || math.IsInf(factor, 0) {
+				return usagef("--speed %q: want a positive factor of real time or max", *speed)
+			}
+		}
+		return replayStream(ctx, e, *url, *replay, factor, cfg, rf)
+	} else if set["speed"] {
+		return usagef("--speed applies to --replay only")
+	}
+	cfg.Faults = append(cfg.Faults, faults...)
+	gen, sources, err := newGenerator(cfg)
+	if err != nil {
+		return err
+	}
+	nc, err := transport.Connect(*url, "bunchsieve-readout")
+	if err != nil {
+		return err
+	}
+	defer nc.Close()
+	reg := newRegistry()
+	emu, err := emulator.New(emulator.Config{
+		Run: cfg.Run, Seed: cfg.Seed, RateHz: cfg.RateHz, Crossings: rf.crossings, BatchCrossings: cfg.BatchCrossings,
+		Partitions: *partitions, Faults: cfg.Faults,
+	}, gen, sources, emulator.NewNATSSink(nc, cfg.Subjects()), reg)
+	if err != nil {
+		return err
+	}
+	stop, err := serveMetrics(rf.metrics, reg)
+	if err != nil {
+		return err
+	}
+	defer stop()
+	if rf.duration > 0 {
+		var cancel context.CancelFunc
+		ctx, cancel = context.WithTimeout(ctx, rf.duration)
+		defer cancel()
+	}
+	start := time.Now()
+	runErr := emu.Run(ctx)
+	fmt.Fprintf(e.stdout, "readout: %d crossings, %d fragments published\n", emu.Offered(), emu.FragmentsSent())
+	if inj := emu.Injected(); inj != (emulator.InjectedCounts{}) {
+		fmt.Fprintf(e.stdout, "readout: injected %+v\n", inj)
+	}
+	s := &summary.Summary{Run: cfg.Run, Seed: cfg.Seed, Sources: cfg.Sources, DurationS: time.Since(start).Seconds(), Crossings: emu.Offered()}
+	if rf.summary != "" {
+		if err := s.WriteJSON(rf.summary); err != nil {
+			return err
+		}
+	}
+	return runErr
+}
+
+// newGenerator builds the run's crossing generator and its source ids.
+func newGenerator(cfg runconfig.Config) (detector.Generator, []uint32, error) {
+	desc, err := cfg.LoadDetector()
+	if err != nil {
+		return nil, nil, err
+	}
+	part, err := detector.NewPartition(desc.Geometry, cfg.Sources)
+	if err != nil {
+		return nil, nil, err
+	}
+	gen, err := detector.NewSimpleGenerator(desc, part, cfg.Seed, cfg.Generator)
+	if err != nil {
+		return nil, nil, err
+	}
+	return gen, part.SourceIDs(), nil
+}
+
+func replayStream(ctx context.Context, e *env, url, path string, speed float64, cfg runconfig.Config, rf runFlags) error {
+	r, err := recording.Open(path)
+	if err != nil {
+		return err
+	}
+	defer r.Close()
+	nc, err := transport.Connect(url, "bunchsieve-readout-replay")
+	if err != nil {
+		return err
+	}
+	defer nc.Close()
+	if rf.duration > 0 {
+		var cancel context.CancelFunc
+		ctx, cancel = context.WithTimeout(ctx, rf.duration)
+		defer cancel()
+	}
+	start := time.Now()
+	st, runErr := emulator.Replay(ctx, r, emulator.NewNATSSink(nc, cfg.Subjects()), speed)
+	took := time.Since(start)
+	fmt.Fprintf(e.stdout, "readout: replayed %d batches, %d fragments from %s in %.2fs (%.0f fragments/s)\n",
+		st.Batches, st.Fragments, path, took.Seconds(), float64(st.Fragments)/took.Seconds())
+	h := r.Header()
+	s := &summary.Summary{Run: h.Run, Seed: h.Seed, Sources: len(h.SourceIds), DurationS: took.Seconds(), Crossings: st.Crossings}
+	if rf.summary != "" {
+		if err := s.WriteJSON(rf.summary); err != nil {
+			return errors.Join(runErr, err)
+		}
+	}
+	return runErr
+}
+
+func runBuild(ctx context.Context, e *env, args []string) error {
+	fs := newFlags(e, "build", "[flags]")
+	var rf runFlags
+	rf.register(fs, "", false)
+	url := fs.String("nats", defaultNATS, "NATS server `URL`")
+	instance := fs.Int("instance", 0, "this builder's share, 0..builders-1")
+	instances := fs.Int("builders", 1, "number of builder instances sharing the crossings")
+	if err := parse(fs, args, 0); err != nil {
+		return err
+	}
+	cfg, err := rf.resolve(setFlags(fs))
+	if err != nil {
+		return err
+	}
+	if *instances < 1 || *instance < 0 || *instance >= *instances {
+		return usagef("--instance %d of --builders %d: want 0 <= instance < builders", *instance, *instances)
+	}
+	desc, err := cfg.LoadDetector()
+	if err != nil {
+		return err
+	}
+	nc, err := transport.Connect(*url, "bunchsieve-build")
+	if err != nil {
+		return err
+	}
+	defer nc.Close()
+	reg := newRegistry()
+	asm, err := assembler.New(assembler.Config{
+		Builder: cfg.BuilderConfig(cfg.SourceIDs()), Instance: *instance, Instances: *instances,
+		LumiSliceOrbits: desc.Config.LumiSliceOrbits, Subjects: cfg.Subjects(),
+	}, nc, reg)
+	if err != nil {
+		return err
+	}
+	stop, err := serveMetrics(rf.metrics, reg)
+	if err != nil {
+		return err
+	}
+	defer stop()
+	start := time.Now()
+	runErr := asm.Run(ctx)
+	b := asm.Stats()
+	s := &summary.Summary{
+		Run: cfg.Run, Sources: cfg.Sources, DurationS: time.Since(start).Seconds(),
+		EventsBuilt: b.EventsComplete + b.EventsIncomplete, EventsComplete: b.EventsComplete, EventsIncomplete: b.EventsIncomplete,
+		Fragments: summary.Fragments{Received: b.Received, InEvents: b.InEvents, Duplicate: b.Duplicate, Late: b.Late,
+			Malformed: b.Malformed, UnknownSource: b.UnknownSource, OutOfTime: b.OutOfTime},
+		Transport: summary.Transport{FragmentBatchesDropped: asm.DroppedMessages(), FragmentBatchesUndecodable: asm.UndecodableMessages()},
+		Latency:   summary.Latency{BuildP50S: asm.Latency.Quantile(0.5).Seconds(), BuildP99S: asm.Latency.Quantile(0.99).Seconds()},
+	}
+	if err := finish(e, rf.summary, s); err != nil {
+		return err
+	}
+	return runErr
+}
+
+func runSelect(ctx context.Context, e *env, args []string) error {
+	fs := newFlags(e, "select", "[flags]")
+	var rf runFlags
+	rf.register(fs, "", false)
+	fs.StringVar(&rf.menu, "menu", "", "menu `FILE` (default: the built-in examples/menus/starter.yaml)")
+	url := fs.String("nats", defaultNATS, "NATS server `URL`")
+	builders := fs.Int("builders", 1, "number of builder instances feeding the selection")
+	if err := parse(fs, args, 0); err != nil {
+		return err
+	}
+	cfg, err := rf.resolve(setFlags(fs))
+	if err != nil {
+		return err
+	}
+	if *builders < 1 {
+		return usagef("--builders %d: want >= 1", *builders)
+	}
+	desc, err := cfg.LoadDetector()
+	if err != nil {
+		return err
+	}
+	menu, err := cfg.LoadMenu()
+	if err != nil {
+		return err
+	}
+	nc, err := transport.Connect(*url, "bunchsieve-select")
+	if err != nil {
+		return err
+	}
+	defer nc.Close()
+	reg := newRegistry()
+	sel, err := selector.New(selector.Config{Menu: menu, Geometry: desc.Geometry, Builders: *builders, Subjects: cfg.Subjects()}, nc, reg)
+	if err != nil {
+		return err
+	}
+	stop, err := serveMetrics(rf.metrics, reg)
+	if err != nil {
+		return err
+	}
+	defer stop()
+	start := time.Now()
+	runErr := sel.Run(ctx)
+	s := &summary.Summary{
+		Run: cfg.Run, DurationS: time.Since(start).Seconds(), EventsDecided: sel.Events(), Accepted: sel.Accepted(),
+		Menu: menu.Name, MenuHash: menu.Hash, PrescaleSet: sel.Trigger().PrescaleStatus().Set,
+		Transport: summary.Transport{EventBatchesDropped: sel.DroppedMessages(), EventBatchesUndecodable: sel.UndecodableMessages()},
+		Latency:   summary.Latency{EndToEndP50S: sel.EndToEnd.Quantile(0.5).Seconds(), EndToEndP99S: sel.EndToEnd.Quantile(0.99).Seconds(), EndToEndMaxS: sel.EndToEnd.Max().Seconds()},
+	}
+	for _, rc := range sel.Counts() {
+		s.Rules = append(s.Rules, summary.Rule{Name: rc.Name, Prescale: rc.Prescale, Passed: rc.Passed, Accepted: rc.Kept})
+	}
+	if err := finish(e, rf.summary, s); err != nil {
+		return err
+	}
+	return runErr
+}

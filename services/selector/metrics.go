@@ -1,0 +1,62 @@
+package selector
+
+import (
+	"fmt"
+
+	"github.com/prometheus/client_golang/prometheus"
+)
+
+type metrics struct {
+	latency     prometheus.Histogram
+	endToEnd    prometheus.Histogram
+	decisions   prometheus.Counter
+	accepted    prometheus.Counter
+	dropped     prometheus.Counter
+	undecodable prometheus.Counter
+}
+
+func newMetrics(reg prometheus.Registerer, s *Selector) (*metrics, error) {
+	m := &metrics{
+		latency: prometheus.NewHistogram(prometheus.HistogramOpts{
+			Name: "bunchsieve_selection_latency_seconds", Help: "Time to compute the features and apply the menu to one event.",
+			Buckets: prometheus.ExponentialBucketsRange(1e-6, 1, 16), NativeHistogramBucketFactor: 1.1, NativeHistogramMaxBucketNumber: 160,
+		}),
+		endToEnd: prometheus.NewHistogram(prometheus.HistogramOpts{
+			Name: "bunchsieve_end_to_end_latency_seconds", Help: "Time from the readout publishing a crossing's first fragment batch to its decision.",
+			Buckets: prometheus.ExponentialBucketsRange(10e-6, 10, 16), NativeHistogramBucketFactor: 1.1, NativeHistogramMaxBucketNumber: 160,
+		}),
+		decisions:   prometheus.NewCounter(prometheus.CounterOpts{Name: "bunchsieve_selection_decisions_total", Help: "Events the selection decided on."}),
+		accepted:    prometheus.NewCounter(prometheus.CounterOpts{Name: "bunchsieve_selection_events_accepted_total", Help: "Events accepted by at least one rule after prescale."}),
+		dropped:     prometheus.NewCounter(prometheus.CounterOpts{Name: "bunchsieve_selection_batches_dropped_total", Help: "Event batches the NATS client dropped because the selection fell behind (slow consumer)."}),
+		undecodable: prometheus.NewCounter(prometheus.CounterOpts{Name: "bunchsieve_selection_batches_undecodable_total", Help: "Event batches that could not be decoded."}),
+	}
+	for _, c := range []prometheus.Collector{m.latency, m.endToEnd, m.decisions, m.accepted, m.dropped, m.undecodable, &ruleCounts{s: s}} {
+		if err := reg.Register(c); err != nil {
+			return nil, fmt.Errorf("selector: register metrics: %w", err)
+		}
+	}
+	return m, nil
+}
+
+var (
+	descPassed   = prometheus.NewDesc("bunchsieve_selection_rule_passed_total", "Events satisfying a rule's condition, before prescale.", []string{"rule"}, nil)
+	descAccepted = prometheus.NewDesc("bunchsieve_selection_rule_accepted_total", "Events a rule kept after its prescale.", []string{"rule"}, nil)
+	descPrescale = prometheus.NewDesc("bunchsieve_selection_rule_prescale", "Prescale in force for a rule (0 when the rule is off).", []string{"rule"}, nil)
+)
+
+// ruleCounts exports the selection library's counters at scrape time.
+type ruleCounts struct{ s *Selector }
+
+func (c *ruleCounts) Describe(ch chan<- *prometheus.Desc) {
+	ch <- descPassed
+	ch <- descAccepted
+	ch <- descPrescale
+}
+
+func (c *ruleCounts) Collect(ch chan<- prometheus.Metric) {
+	for _, rc := range c.s.sel.Counts() {
+		ch <- prometheus.MustNewConstMetric(descPassed, prometheus.CounterValue, float64(rc.Passed), rc.Name)
+		ch <- prometheus.MustNewConstMetric(descAccepted, prometheus.CounterValue, float64(rc.Kept), rc.Name)
+		ch <- prometheus.MustNewConstMetric(descPrescale, prometheus.GaugeValue, float64(rc.Prescale), rc.Name)
+	}
+}

@@ -1,0 +1,98 @@
+package transport
+
+import (
+	"errors"
+	"fmt"
+	"time"
+
+	"github.com/nats-io/nats-server/v2/server"
+	"github.com/nats-io/nats.go"
+)
+
+// Pending limits for our subscriptions. The library default (500,000
+// messages, 64 MiB) is set explicitly and raised: a batch carries many
+// fragments, so bytes bind first. Whatever still overflows is counted via
+// Subscription.Dropped, never lost silently.
+const (
+	PendingMsgs  = 1 << 20
+	PendingBytes = 1 << 30
+)
+
+// Connect opens a connection to url for a stage named name. It fails fast
+// (2 s) when the server cannot be reached instead of retrying for ever.
+func Connect(url, name string) (*nats.Conn, error) {
+	if url == "" {
+		return nil, errors.New("transport: empty NATS URL")
+	}
+	nc, err := nats.Connect(url,
+		nats.Name(name),
+		nats.Timeout(2*time.Second),
+		nats.RetryOnFailedConnect(false),
+		nats.MaxReconnects(60),
+		nats.ReconnectWait(500*time.Millisecond),
+		nats.PingInterval(5*time.Second),
+		nats.ReconnectBufSize(64<<20),
+	)
+	if err != nil {
+		return nil, fmt.Errorf("transport: connect to %s: %w", url, err)
+	}
+	return nc, nil
+}
+
+// ConnectInProcess connects to an embedded server without TCP.
+func ConnectInProcess(srv *server.Server, name string) (*nats.Conn, error) {
+	nc, err := nats.Connect("", nats.InProcessServer(srv), nats.Name(name), nats.ReconnectBufSize(64<<20))
+	if err != nil {
+		return nil, fmt.Errorf("transport: in-process connection %s: %w", name, err)
+	}
+	return nc, nil
+}
+
+// Embedded starts an in-process NATS server listening on host:port of the
+// loopback interface (port -1 picks a free port). Call Shutdown and
+// WaitForShutdown on the result when done.
+func Embedded(host string, port int) (*server.Server, error) {
+	if host == "" {
+		host = "127.0.0.1"
+	}
+	opts := &server.Options{
+		ServerName: "bunchsieve-embedded",
+		Host:       host,
+		Port:       port,
+		NoLog:      true,
+		NoSigs:     true,
+		MaxPayload: 8 << 20,
+		// A selection or builder that falls behind for a moment should be
+		// buffered, not cut off.
+		MaxPending: 256 << 20,
+	}
+	srv, err := server.NewServer(opts)
+	if err != nil {
+		return nil, fmt.Errorf("transport: embedded NATS server: %w", err)
+	}
+	srv.Start()
+	if !srv.ReadyForConnections(5 * time.Second) {
+		srv.Shutdown()
+		return nil, fmt.Errorf("transport: embedded NATS server on %s:%d did not become ready", host, port)
+	}
+	return srv, nil
+}
+
+// Subscribe subscribes with raised pending limits (see PendingMsgs).
+func Subscribe(nc *nats.Conn, subject, queue string, h nats.MsgHandler) (*nats.Subscription, error) {
+	var sub *nats.Subscription
+	var err error
+	if queue == "" {
+		sub, err = nc.Subscribe(subject, h)
+	} else {
+		sub, err = nc.QueueSubscribe(subject, queue, h)
+	}
+	if err != nil {
+		return nil, fmt.Errorf("transport: subscribe %s: %w", subject, err)
+	}
+	if err := sub.SetPendingLimits(PendingMsgs, PendingBytes); err != nil {
+		_ = sub.Unsubscribe()
+		return nil, fmt.Errorf("transport: pending limits on %s: %w", subject, err)
+	}
+	return sub, nil
+}

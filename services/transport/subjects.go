@@ -1,0 +1,62 @@
+// Package transport is how the services talk: the NATS subject layout, the
+// connection settings every stage uses, and the embedded NATS server of the
+// all-in-one stack.
+package transport
+
+import (
+	"fmt"
+	"regexp"
+	"strconv"
+)
+
+// DefaultPrefix is the subject prefix when none is configured.
+const DefaultPrefix = "bunchsieve"
+
+var prefixRe = regexp.MustCompile(`^[A-Za-z0-9_-]+(\.[A-Za-z0-9_-]+)*$`)
+
+// Subjects names the NATS subjects of one deployment. Two runs share a NATS
+// server safely when their prefixes differ. The zero value uses
+// DefaultPrefix.
+//
+//	<prefix>.frag.<partition>.<source>   fragment batches, one subject per source and builder share
+//	<prefix>.built                       built-event batches (selection workers form a queue group)
+//	<prefix>.decisions                   decision batches
+type Subjects struct {
+	Prefix string
+}
+
+func (s Subjects) prefix() string {
+	if s.Prefix == "" {
+		return DefaultPrefix
+	}
+	return s.Prefix
+}
+
+// Validate reports a prefix that is not a valid literal NATS subject.
+func (s Subjects) Validate() error {
+	if s.Prefix != "" && !prefixRe.MatchString(s.Prefix) {
+		return fmt.Errorf("transport: subject prefix %q: want dot-separated tokens of letters, digits, '-' or '_'", s.Prefix)
+	}
+	return nil
+}
+
+// Fragments returns the subject of source's batches for builder share
+// partition.
+func (s Subjects) Fragments(partition int, source uint32) string {
+	return s.prefix() + ".frag." + strconv.Itoa(partition) + "." + strconv.FormatUint(uint64(source), 10)
+}
+
+// FragmentsOf returns the wildcard subject of every source's batches for one
+// builder share.
+func (s Subjects) FragmentsOf(partition int) string {
+	return s.prefix() + ".frag." + strconv.Itoa(partition) + ".*"
+}
+
+// Built returns the subject of built-event batches.
+func (s Subjects) Built() string { return s.prefix() + ".built" }
+
+// Decisions returns the subject of decision batches.
+func (s Subjects) Decisions() string { return s.prefix() + ".decisions" }
+
+// SelectQueue is the queue group selection workers share.
+func (s Subjects) SelectQueue() string { return s.prefix() + "-select" }
