@@ -235,6 +235,9 @@ func (a *Assembler) emit(ev *builder.Event) {
 	lat := time.Duration(now.UnixNano() - ev.FirstArrivalNs)
 	a.Latency.Record(lat)
 	a.m.latency.Observe(lat.Seconds())
+	if ev.EarliestSentNs > 0 {
+		a.m.sinceSent.Observe(time.Duration(now.UnixNano() - ev.EarliestSentNs).Seconds())
+	}
 	a.out.Events = append(a.out.Events, be)
 	a.outBytes += proto.Size(be)
 	a.emitted++

@@ -9,6 +9,7 @@ import (
 
 type metrics struct {
 	latency     prometheus.Histogram
+	sinceSent   prometheus.Histogram
 	batches     prometheus.Counter
 	dropped     prometheus.Counter
 	undecodable prometheus.Counter
@@ -26,6 +27,11 @@ func newMetrics(reg prometheus.Registerer, a *Assembler) (*metrics, error) {
 			Help:    "Time from a crossing's first fragment arriving to its event being emitted.",
 			Buckets: latencyBuckets, NativeHistogramBucketFactor: 1.1, NativeHistogramMaxBucketNumber: 160,
 		}),
+		sinceSent: prometheus.NewHistogram(prometheus.HistogramOpts{
+			Name: "bunchsieve_builder_readout_to_emit_seconds", ConstLabels: inst,
+			Help:    "Time from the readout publishing a crossing's first fragment batch to the builder emitting its event. Emulated crossing timestamps are machine time, not wall time, so this is the wall-clock latency of the crossing.",
+			Buckets: latencyBuckets, NativeHistogramBucketFactor: 1.1, NativeHistogramMaxBucketNumber: 160,
+		}),
 		batches: prometheus.NewCounter(prometheus.CounterOpts{Name: "bunchsieve_builder_event_batches_sent_total", ConstLabels: inst,
 			Help: "Batches of built events published to the selection."}),
 		dropped: prometheus.NewCounter(prometheus.CounterOpts{Name: "bunchsieve_builder_batches_dropped_total", ConstLabels: inst,
@@ -33,7 +39,7 @@ func newMetrics(reg prometheus.Registerer, a *Assembler) (*metrics, error) {
 		undecodable: prometheus.NewCounter(prometheus.CounterOpts{Name: "bunchsieve_builder_batches_undecodable_total", ConstLabels: inst,
 			Help: "Fragment batches that could not be decoded."}),
 	}
-	for _, c := range []prometheus.Collector{m.latency, m.batches, m.dropped, m.undecodable, &accounting{a: a, inst: inst}} {
+	for _, c := range []prometheus.Collector{m.latency, m.sinceSent, m.batches, m.dropped, m.undecodable, &accounting{a: a, inst: inst}} {
 		if err := reg.Register(c); err != nil {
 			return nil, fmt.Errorf("assembler: register metrics: %w", err)
 		}
