@@ -68,6 +68,7 @@ type Assembler struct {
 	lastLog   time.Time
 	suppress  int
 	undecoded uint64
+	bytesIn   map[uint32]uint64 // encoded batch bytes per source
 
 	done    chan struct{}
 	ready   chan struct{}
@@ -99,7 +100,7 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Assembler, erro
 	if err := cfg.Subjects.Validate(); err != nil {
 		return nil, err
 	}
-	a := &Assembler{cfg: cfg, nc: nc, log: cfg.Logger, ended: make(map[uint32]bool), done: make(chan struct{}), ready: make(chan struct{}),
+	a := &Assembler{cfg: cfg, nc: nc, log: cfg.Logger, ended: make(map[uint32]bool), bytesIn: make(map[uint32]uint64), done: make(chan struct{}), ready: make(chan struct{}),
 		out: &pb.EventBatch{Builder: uint32(cfg.Instance)}}
 	b, err := builder.New(cfg.Builder, a.emit)
 	if err != nil {
@@ -183,6 +184,7 @@ func (a *Assembler) onMsg(msg *nats.Msg) {
 	}
 	a.mu.Lock()
 	defer a.mu.Unlock()
+	a.bytesIn[batch.SourceId] += uint64(len(msg.Data))
 	for _, f := range batch.Fragments {
 		if err := a.b.Add(f, arrival, batch.SentUnixNs); err != nil {
 			if errors.Is(err, builder.ErrWindowFull) {
@@ -302,3 +304,26 @@ func (a *Assembler) UndecodableMessages() uint64 {
 	defer a.mu.Unlock()
 	return a.undecoded
 }
+
+// SourceState is one expected source's accounting.
+type SourceState struct {
+	ID uint32
+	builder.SourceStats
+}
+
+// SourceStates returns every expected source's accounting, in the order of
+// the configuration.
+func (a *Assembler) SourceStates() []SourceState {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	out := make([]SourceState, 0, len(a.cfg.Builder.Sources))
+	for _, id := range a.cfg.Builder.Sources {
+		if ss, ok := a.b.SourceStats(id); ok {
+			out = append(out, SourceState{ID: id, SourceStats: ss})
+		}
+	}
+	return out
+}
+
+// Sources returns the expected source ids.
+func (a *Assembler) Sources() []uint32 { return append([]uint32(nil), a.cfg.Builder.Sources...) }

@@ -61,6 +61,9 @@ var (
 	descDiscarded = func(l prometheus.Labels) *prometheus.Desc {
 		return prometheus.NewDesc("bunchsieve_builder_fragments_discarded_total", "Fragments not used in an event, per source and reason (duplicate, late, malformed, out_of_time). Unknown sources are counted with source=\"unknown\".", []string{"source", "reason"}, l)
 	}
+	descBytes = func(l prometheus.Labels) *prometheus.Desc {
+		return prometheus.NewDesc("bunchsieve_builder_received_bytes_total", "Encoded size of the fragment batches offered to the event builder, per source (batch framing included).", []string{"source"}, l)
+	}
 	descAlive = func(l prometheus.Labels) *prometheus.Desc {
 		return prometheus.NewDesc("bunchsieve_builder_source_alive", "1 while a source is sending, 0 once it has been silent past the dead-source timeout.", []string{"source"}, l)
 	}
@@ -73,7 +76,7 @@ var (
 )
 
 func (c *accounting) Describe(ch chan<- *prometheus.Desc) {
-	for _, d := range []func(prometheus.Labels) *prometheus.Desc{descReceived, descDiscarded, descAlive, descOpen, descBuilt} {
+	for _, d := range []func(prometheus.Labels) *prometheus.Desc{descReceived, descBytes, descDiscarded, descAlive, descOpen, descBuilt} {
 		ch <- d(c.inst)
 	}
 }
@@ -83,7 +86,7 @@ func (c *accounting) Collect(ch chan<- prometheus.Metric) {
 	a.mu.Lock()
 	defer a.mu.Unlock()
 	s := a.b.Stats()
-	recv, disc, alive := descReceived(c.inst), descDiscarded(c.inst), descAlive(c.inst)
+	recv, disc, alive, bytes := descReceived(c.inst), descDiscarded(c.inst), descAlive(c.inst), descBytes(c.inst)
 	for _, id := range a.cfg.Builder.Sources {
 		ss, ok := a.b.SourceStats(id)
 		if !ok {
@@ -91,6 +94,7 @@ func (c *accounting) Collect(ch chan<- prometheus.Metric) {
 		}
 		src := strconv.FormatUint(uint64(id), 10)
 		ch <- prometheus.MustNewConstMetric(recv, prometheus.CounterValue, float64(ss.Received), src)
+		ch <- prometheus.MustNewConstMetric(bytes, prometheus.CounterValue, float64(a.bytesIn[id]), src)
 		for _, r := range []struct {
 			name string
 			n    uint64

@@ -140,7 +140,6 @@ func buildAll(t *testing.T, n int, crossings uint64, faults []emulator.Fault) (m
 	return events, total
 }
 
-
 // One builder and three builders over one NATS server build exactly the
 // same events, faults included: instance k of N owns a deterministic share
 // of the crossings, and the union of the shares is the whole.

@@ -29,6 +29,8 @@ type env struct {
 
 var commands = []command{
 	{"up", "run the whole chain on an embedded NATS server and print a summary", runUp},
+	{"serve", "run the chain under gRPC run control, with the operator page (configure/start/stop with bunchsieve ctl)", runServe},
+	{"ctl", "steer a served chain: ctl status|configure|start|stop|menu FILE|prescale SET|watch", runCtl},
 	{"readout", "run the readout emulator against a NATS server", runReadout},
 	{"build", "run the event builder against a NATS server", runBuild},
 	{"select", "run the selection against a NATS server", runSelect},

@@ -7,6 +7,7 @@ import (
 	"strconv"
 
 	"github.com/bunchsieve/bunchsieve/services/stack"
+	"github.com/bunchsieve/bunchsieve/services/web"
 )
 
 func runUp(ctx context.Context, e *env, args []string) error {
@@ -57,6 +58,7 @@ func runUp(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 	defer st.Close()
+	st.Host().Handle("/", web.Handler(st.Page()))
 	if !*quiet {
 		limit := "until interrupted (Ctrl-C drains and prints the summary)"
 		switch {

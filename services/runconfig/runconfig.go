@@ -25,17 +25,20 @@ import (
 
 // Config is a run configuration. Its zero value is completed by Defaults.
 type Config struct {
-	Run            uint32                `yaml:"run"`
-	Seed           uint64                `yaml:"seed"`
-	Sources        int                   `yaml:"sources"`
-	RateHz         float64               `yaml:"rate_hz"`
-	Menu           string                `yaml:"menu"`
-	Detector       string                `yaml:"detector"`
-	BatchCrossings int                   `yaml:"batch_crossings"`
-	StatusEvery    time.Duration         `yaml:"status_every"`
-	SubjectPrefix  string                `yaml:"subject_prefix"`
-	Generator      detector.SimpleConfig `yaml:"generator"`
-	Builder        BuilderSettings       `yaml:"builder"`
+	Run            uint32        `yaml:"run"`
+	Seed           uint64        `yaml:"seed"`
+	Sources        int           `yaml:"sources"`
+	RateHz         float64       `yaml:"rate_hz"`
+	Menu           string        `yaml:"menu"`
+	Detector       string        `yaml:"detector"`
+	BatchCrossings int           `yaml:"batch_crossings"`
+	StatusEvery    time.Duration `yaml:"status_every"`
+	SubjectPrefix  string        `yaml:"subject_prefix"`
+	// LumiSliceOrbits overrides the detector description's lumi-slice
+	// length; zero keeps it.
+	LumiSliceOrbits uint64                `yaml:"lumi_slice_orbits"`
+	Generator       detector.SimpleConfig `yaml:"generator"`
+	Builder         BuilderSettings       `yaml:"builder"`
 	// Faults are readout faults the emulator injects; empty means none.
 	Faults []emulator.Fault `yaml:"faults"`
 }

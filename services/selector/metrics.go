@@ -39,9 +39,13 @@ func newMetrics(reg prometheus.Registerer, s *Selector) (*metrics, error) {
 }
 
 var (
-	descPassed   = prometheus.NewDesc("bunchsieve_selection_rule_passed_total", "Events satisfying a rule's condition, before prescale.", []string{"rule"}, nil)
-	descAccepted = prometheus.NewDesc("bunchsieve_selection_rule_accepted_total", "Events a rule kept after its prescale.", []string{"rule"}, nil)
-	descPrescale = prometheus.NewDesc("bunchsieve_selection_rule_prescale", "Prescale in force for a rule (0 when the rule is off).", []string{"rule"}, nil)
+	descPassed         = prometheus.NewDesc("bunchsieve_selection_rule_passed_total", "Events satisfying a rule's condition, before prescale.", []string{"rule"}, nil)
+	descAccepted       = prometheus.NewDesc("bunchsieve_selection_rule_accepted_total", "Events a rule kept after its prescale.", []string{"rule"}, nil)
+	descStreamPassed   = prometheus.NewDesc("bunchsieve_selection_stream_passed_total", "Events for which at least one rule of the stream passed before prescale.", []string{"stream"}, nil)
+	descStreamAccepted = prometheus.NewDesc("bunchsieve_selection_stream_accepted_total", "Events routed to the stream: at least one of its rules kept them after prescale.", []string{"stream"}, nil)
+	descMenuInfo       = prometheus.NewDesc("bunchsieve_selection_menu_info", "Constant 1, labelled with the menu in force, its hash and the active prescale set.", []string{"menu", "menu_hash", "prescale_set"}, nil)
+	descLumiSlice      = prometheus.NewDesc("bunchsieve_selection_lumi_slice", "Highest lumi slice the selection has decided events of (0 before the first event).", nil, nil)
+	descPrescale       = prometheus.NewDesc("bunchsieve_selection_rule_prescale", "Prescale in force for a rule (0 when the rule is off).", []string{"rule"}, nil)
 )
 
 // ruleCounts exports the selection library's counters at scrape time.
@@ -51,12 +55,23 @@ func (c *ruleCounts) Describe(ch chan<- *prometheus.Desc) {
 	ch <- descPassed
 	ch <- descAccepted
 	ch <- descPrescale
+	ch <- descStreamPassed
+	ch <- descStreamAccepted
+	ch <- descMenuInfo
+	ch <- descLumiSlice
 }
 
 func (c *ruleCounts) Collect(ch chan<- prometheus.Metric) {
-	for _, rc := range c.s.sel.Counts() {
+	for _, rc := range c.s.Counts() {
 		ch <- prometheus.MustNewConstMetric(descPassed, prometheus.CounterValue, float64(rc.Passed), rc.Name)
 		ch <- prometheus.MustNewConstMetric(descAccepted, prometheus.CounterValue, float64(rc.Kept), rc.Name)
 		ch <- prometheus.MustNewConstMetric(descPrescale, prometheus.GaugeValue, float64(rc.Prescale), rc.Name)
 	}
+	for _, sc := range c.s.StreamCounts() {
+		ch <- prometheus.MustNewConstMetric(descStreamPassed, prometheus.CounterValue, float64(sc.Passed), sc.Name)
+		ch <- prometheus.MustNewConstMetric(descStreamAccepted, prometheus.CounterValue, float64(sc.Accepted), sc.Name)
+	}
+	t := c.s.Trigger()
+	ch <- prometheus.MustNewConstMetric(descMenuInfo, prometheus.GaugeValue, 1, t.Menu().Name, t.Menu().Hash, t.PrescaleStatus().Set)
+	ch <- prometheus.MustNewConstMetric(descLumiSlice, prometheus.GaugeValue, float64(c.s.LumiSlice()))
 }

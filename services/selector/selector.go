@@ -44,7 +44,7 @@ type Config struct {
 type Selector struct {
 	cfg Config
 	nc  *nats.Conn
-	sel *trigger.Selector
+	sel atomic.Pointer[trigger.Selector] // swapped at a lumi-slice boundary by LoadMenu
 	m   *metrics
 	log *slog.Logger
 
@@ -61,6 +61,12 @@ type Selector struct {
 	pubErr   error
 	finished chan struct{}
 	ready    chan struct{}
+
+	streams      *streamCounts // of the menu in force
+	decidedAny   bool
+	maxSlice     uint32
+	pending      *trigger.Selector
+	pendingAfter uint32
 
 	undecoded atomic.Uint64
 	dropped   atomic.Uint64
@@ -92,8 +98,10 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Selector, error
 	if err != nil {
 		return nil, fmt.Errorf("selector: %w", err)
 	}
-	s := &Selector{cfg: cfg, nc: nc, sel: sel, log: cfg.Logger, finished: make(chan struct{}), ready: make(chan struct{}),
+	s := &Selector{cfg: cfg, nc: nc, log: cfg.Logger, finished: make(chan struct{}), ready: make(chan struct{}),
 		out: &pb.DecisionBatch{Worker: uint32(cfg.Worker)}}
+	s.sel.Store(sel)
+	s.streams = newStreamCounts(cfg.Menu)
 	m, err := newMetrics(reg, s)
 	if err != nil {
 		return nil, err
@@ -103,7 +111,52 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Selector, error
 }
 
 // Trigger returns the selection library instance, for prescale-set changes.
-func (s *Selector) Trigger() *trigger.Selector { return s.sel }
+func (s *Selector) Trigger() *trigger.Selector { return s.sel.Load() }
+
+// LoadMenu validates m against the geometry and makes it the menu from the
+// first event of the next lumi slice on: the first event whose slice is
+// greater than the highest slice decided so far. Before any event it takes
+// effect at once. A second call before the switch replaces the first. The
+// new menu's counts start from zero. It is safe for concurrent use.
+func (s *Selector) LoadMenu(m *trigger.Menu, prescaleSet string) error {
+	g := s.cfg.Geometry
+	next, err := trigger.NewSelector(m, trigger.Grid{EtaBins: g.EtaBins, PhiBins: g.PhiBins, EtaMin: -g.EtaMax, EtaStep: g.EtaStep})
+	if err != nil {
+		return fmt.Errorf("selector: %w", err)
+	}
+	if prescaleSet != "" {
+		if err := next.SetPrescaleSet(prescaleSet); err != nil {
+			return fmt.Errorf("selector: %w", err)
+		}
+	}
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if !s.decidedAny {
+		s.sel.Store(next)
+		s.streams = newStreamCounts(m)
+		return nil
+	}
+	s.pending, s.pendingAfter = next, s.maxSlice
+	return nil
+}
+
+// PendingMenu returns the hash of a menu waiting for the next lumi slice
+// and the slice after which it takes effect, or "" if none waits.
+func (s *Selector) PendingMenu() (hash string, after uint32) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.pending == nil {
+		return "", 0
+	}
+	return s.pending.Menu().Hash, s.pendingAfter
+}
+
+// LumiSlice returns the highest lumi slice decided so far.
+func (s *Selector) LumiSlice() uint32 {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.maxSlice
+}
 
 // Run subscribes to built events and decides on them until every builder
 // has sent its end-of-run batch and all its events are decided, or ctx
@@ -185,8 +238,16 @@ func (s *Selector) onMsg(msg *nats.Msg) {
 // decide runs the menu on one built event. Called with s.mu held.
 func (s *Selector) decide(be *pb.BuiltEvent) {
 	start := time.Now()
+	if s.pending != nil && be.LumiSlice > s.pendingAfter {
+		s.sel.Store(s.pending)
+		s.streams = newStreamCounts(s.pending.Menu())
+		s.pending = nil
+	}
+	s.decidedAny = true
+	s.maxSlice = max(s.maxSlice, be.LumiSlice)
+	sel := s.sel.Load()
 	s.fill(be)
-	s.sel.Decide(&s.ev, &s.dec)
+	sel.Decide(&s.ev, &s.dec)
 	took := time.Since(start)
 	s.m.latency.Observe(took.Seconds())
 	s.seen++
@@ -196,11 +257,12 @@ func (s *Selector) decide(be *pb.BuiltEvent) {
 		Accept: s.dec.Accept, MenuHash: s.dec.MenuHash, PrescaleSet: s.dec.PrescaleSet,
 		EventFlags: be.Flags, Streams: append([]string(nil), s.dec.Streams...),
 	}
-	for i, n := range s.sel.RuleNames() {
+	for i, n := range sel.RuleNames() {
 		if s.dec.Passed[i] {
 			d.Rules = append(d.Rules, &pb.RuleResult{Rule: n, Index: uint32(i), PassedBeforePrescale: true, PassedAfterPrescale: s.dec.Kept[i]})
 		}
 	}
+	s.streams.add(s.dec.Passed, s.dec.Kept)
 	if s.dec.Accept {
 		s.accepted++
 		s.m.accepted.Inc()
@@ -277,7 +339,7 @@ func (s *Selector) noteDrops(sub *nats.Subscription) {
 }
 
 // Counts returns the per-rule counts of the selection library.
-func (s *Selector) Counts() []trigger.RuleCount { return s.sel.Counts() }
+func (s *Selector) Counts() []trigger.RuleCount { return s.sel.Load().Counts() }
 
 // Events returns how many events this worker decided on.
 func (s *Selector) Events() uint64 {
@@ -299,3 +361,61 @@ func (s *Selector) DroppedMessages() uint64 { return s.dropped.Load() }
 
 // UndecodableMessages returns how many event batches could not be decoded.
 func (s *Selector) UndecodableMessages() uint64 { return s.undecoded.Load() }
+
+// streamCounts counts, per stream of a menu, the events for which one of
+// its rules passed before prescale and those routed to it after.
+type streamCounts struct {
+	names            []string
+	rules            [][]int // stream -> rule indices
+	passed, accepted []uint64
+}
+
+func newStreamCounts(m *trigger.Menu) *streamCounts {
+	sc := &streamCounts{}
+	for _, st := range m.Streams {
+		var idx []int
+		for _, r := range st.Rules {
+			if i := m.RuleIndex(r); i >= 0 {
+				idx = append(idx, i)
+			}
+		}
+		sc.names = append(sc.names, st.Name)
+		sc.rules = append(sc.rules, idx)
+	}
+	sc.passed = make([]uint64, len(sc.names))
+	sc.accepted = make([]uint64, len(sc.names))
+	return sc
+}
+
+func (sc *streamCounts) add(passed, kept []bool) {
+	for k, idx := range sc.rules {
+		p, a := false, false
+		for _, i := range idx {
+			p = p || passed[i]
+			a = a || kept[i]
+		}
+		if p {
+			sc.passed[k]++
+		}
+		if a {
+			sc.accepted[k]++
+		}
+	}
+}
+
+// StreamCount is one stream's counts.
+type StreamCount struct {
+	Name             string
+	Passed, Accepted uint64
+}
+
+// StreamCounts returns the per-stream counts of the menu in force.
+func (s *Selector) StreamCounts() []StreamCount {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	out := make([]StreamCount, len(s.streams.names))
+	for i, n := range s.streams.names {
+		out[i] = StreamCount{Name: n, Passed: s.streams.passed[i], Accepted: s.streams.accepted[i]}
+	}
+	return out
+}

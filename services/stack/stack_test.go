@@ -129,7 +129,7 @@ func TestFaultInjectionAccounting(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	inj := st.emu.Injected()
+	inj := st.chain.emu.Injected()
 	total := sum.Crossings * uint64(sum.Sources)
 	t.Logf("injected %+v; fragments %+v", inj, sum.Fragments)
 	// Each fraction should be close to what was asked: 5000 x 16 fragments,

@@ -94,8 +94,12 @@ type ConfigureRequest struct {
 	RateHz  float64                `protobuf:"fixed64,3,opt,name=rate_hz,json=rateHz,proto3" json:"rate_hz,omitempty"`
 	Seed    uint64                 `protobuf:"varint,4,opt,name=seed,proto3" json:"seed,omitempty"`
 	// Menu text in the bunchsieve menu syntax.
-	Menu          string `protobuf:"bytes,5,opt,name=menu,proto3" json:"menu,omitempty"`
-	PrescaleSet   string `protobuf:"bytes,6,opt,name=prescale_set,json=prescaleSet,proto3" json:"prescale_set,omitempty"`
+	Menu        string `protobuf:"bytes,5,opt,name=menu,proto3" json:"menu,omitempty"`
+	PrescaleSet string `protobuf:"bytes,6,opt,name=prescale_set,json=prescaleSet,proto3" json:"prescale_set,omitempty"`
+	// A run ends by itself after this many crossings or this long; zero
+	// means it flows until Stop.
+	Crossings     uint64  `protobuf:"varint,7,opt,name=crossings,proto3" json:"crossings,omitempty"`
+	DurationS     float64 `protobuf:"fixed64,8,opt,name=duration_s,json=durationS,proto3" json:"duration_s,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -170,6 +174,20 @@ func (x *ConfigureRequest) GetPrescaleSet() string {
 		return x.PrescaleSet
 	}
 	return ""
+}
+
+func (x *ConfigureRequest) GetCrossings() uint64 {
+	if x != nil {
+		return x.Crossings
+	}
+	return 0
+}
+
+func (x *ConfigureRequest) GetDurationS() float64 {
+	if x != nil {
+		return x.DurationS
+	}
+	return 0
 }
 
 type StartRequest struct {
@@ -378,18 +396,23 @@ func (x *SetPrescaleSetRequest) GetPrescaleSet() string {
 }
 
 type RunStatus struct {
-	state         protoimpl.MessageState `protogen:"open.v1"`
-	Phase         RunPhase               `protobuf:"varint,1,opt,name=phase,proto3,enum=bunchsieve.v1.RunPhase" json:"phase,omitempty"`
-	Run           uint32                 `protobuf:"varint,2,opt,name=run,proto3" json:"run,omitempty"`
-	LumiSlice     uint32                 `protobuf:"varint,3,opt,name=lumi_slice,json=lumiSlice,proto3" json:"lumi_slice,omitempty"`
-	MenuHash      string                 `protobuf:"bytes,4,opt,name=menu_hash,json=menuHash,proto3" json:"menu_hash,omitempty"`
-	PrescaleSet   string                 `protobuf:"bytes,5,opt,name=prescale_set,json=prescaleSet,proto3" json:"prescale_set,omitempty"`
-	Crossings     uint64                 `protobuf:"varint,6,opt,name=crossings,proto3" json:"crossings,omitempty"`
-	EventsBuilt   uint64                 `protobuf:"varint,7,opt,name=events_built,json=eventsBuilt,proto3" json:"events_built,omitempty"`
-	Accepted      uint64                 `protobuf:"varint,8,opt,name=accepted,proto3" json:"accepted,omitempty"`
-	Detail        string                 `protobuf:"bytes,9,opt,name=detail,proto3" json:"detail,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	state       protoimpl.MessageState `protogen:"open.v1"`
+	Phase       RunPhase               `protobuf:"varint,1,opt,name=phase,proto3,enum=bunchsieve.v1.RunPhase" json:"phase,omitempty"`
+	Run         uint32                 `protobuf:"varint,2,opt,name=run,proto3" json:"run,omitempty"`
+	LumiSlice   uint32                 `protobuf:"varint,3,opt,name=lumi_slice,json=lumiSlice,proto3" json:"lumi_slice,omitempty"`
+	MenuHash    string                 `protobuf:"bytes,4,opt,name=menu_hash,json=menuHash,proto3" json:"menu_hash,omitempty"`
+	PrescaleSet string                 `protobuf:"bytes,5,opt,name=prescale_set,json=prescaleSet,proto3" json:"prescale_set,omitempty"`
+	Crossings   uint64                 `protobuf:"varint,6,opt,name=crossings,proto3" json:"crossings,omitempty"`
+	EventsBuilt uint64                 `protobuf:"varint,7,opt,name=events_built,json=eventsBuilt,proto3" json:"events_built,omitempty"`
+	Accepted    uint64                 `protobuf:"varint,8,opt,name=accepted,proto3" json:"accepted,omitempty"`
+	Detail      string                 `protobuf:"bytes,9,opt,name=detail,proto3" json:"detail,omitempty"`
+	// A menu (by hash) or prescale set waiting for the next lumi slice.
+	PendingMenuHash    string  `protobuf:"bytes,10,opt,name=pending_menu_hash,json=pendingMenuHash,proto3" json:"pending_menu_hash,omitempty"`
+	PendingPrescaleSet string  `protobuf:"bytes,11,opt,name=pending_prescale_set,json=pendingPrescaleSet,proto3" json:"pending_prescale_set,omitempty"`
+	MenuName           string  `protobuf:"bytes,12,opt,name=menu_name,json=menuName,proto3" json:"menu_name,omitempty"`
+	UptimeS            float64 `protobuf:"fixed64,13,opt,name=uptime_s,json=uptimeS,proto3" json:"uptime_s,omitempty"`
+	unknownFields      protoimpl.UnknownFields
+	sizeCache          protoimpl.SizeCache
 }
 
 func (x *RunStatus) Reset() {
@@ -483,6 +506,34 @@ func (x *RunStatus) GetDetail() string {
 		return x.Detail
 	}
 	return ""
+}
+
+func (x *RunStatus) GetPendingMenuHash() string {
+	if x != nil {
+		return x.PendingMenuHash
+	}
+	return ""
+}
+
+func (x *RunStatus) GetPendingPrescaleSet() string {
+	if x != nil {
+		return x.PendingPrescaleSet
+	}
+	return ""
+}
+
+func (x *RunStatus) GetMenuName() string {
+	if x != nil {
+		return x.MenuName
+	}
+	return ""
+}
+
+func (x *RunStatus) GetUptimeS() float64 {
+	if x != nil {
+		return x.UptimeS
+	}
+	return 0
 }
 
 type WatchRatesRequest struct {
@@ -662,14 +713,17 @@ var File_bunchsieve_v1_control_proto protoreflect.FileDescriptor
 
 const file_bunchsieve_v1_control_proto_rawDesc = "" +
 	"\n" +
-	"\x1bbunchsieve/v1/control.proto\x12\rbunchsieve.v1\"\xa2\x01\n" +
+	"\x1bbunchsieve/v1/control.proto\x12\rbunchsieve.v1\"\xdf\x01\n" +
 	"\x10ConfigureRequest\x12\x10\n" +
 	"\x03run\x18\x01 \x01(\rR\x03run\x12\x18\n" +
 	"\asources\x18\x02 \x01(\rR\asources\x12\x17\n" +
 	"\arate_hz\x18\x03 \x01(\x01R\x06rateHz\x12\x12\n" +
 	"\x04seed\x18\x04 \x01(\x04R\x04seed\x12\x12\n" +
 	"\x04menu\x18\x05 \x01(\tR\x04menu\x12!\n" +
-	"\fprescale_set\x18\x06 \x01(\tR\vprescaleSet\"\x0e\n" +
+	"\fprescale_set\x18\x06 \x01(\tR\vprescaleSet\x12\x1c\n" +
+	"\tcrossings\x18\a \x01(\x04R\tcrossings\x12\x1d\n" +
+	"\n" +
+	"duration_s\x18\b \x01(\x01R\tdurationS\"\x0e\n" +
 	"\fStartRequest\"\r\n" +
 	"\vStopRequest\"\x0f\n" +
 	"\rStatusRequest\"H\n" +
@@ -677,7 +731,7 @@ const file_bunchsieve_v1_control_proto_rawDesc = "" +
 	"\x04menu\x18\x01 \x01(\tR\x04menu\x12!\n" +
 	"\fprescale_set\x18\x02 \x01(\tR\vprescaleSet\":\n" +
 	"\x15SetPrescaleSetRequest\x12!\n" +
-	"\fprescale_set\x18\x01 \x01(\tR\vprescaleSet\"\xa0\x02\n" +
+	"\fprescale_set\x18\x01 \x01(\tR\vprescaleSet\"\xb6\x03\n" +
 	"\tRunStatus\x12-\n" +
 	"\x05phase\x18\x01 \x01(\x0e2\x17.bunchsieve.v1.RunPhaseR\x05phase\x12\x10\n" +
 	"\x03run\x18\x02 \x01(\rR\x03run\x12\x1d\n" +
@@ -688,7 +742,12 @@ const file_bunchsieve_v1_control_proto_rawDesc = "" +
 	"\tcrossings\x18\x06 \x01(\x04R\tcrossings\x12!\n" +
 	"\fevents_built\x18\a \x01(\x04R\veventsBuilt\x12\x1a\n" +
 	"\baccepted\x18\b \x01(\x04R\baccepted\x12\x16\n" +
-	"\x06detail\x18\t \x01(\tR\x06detail\"4\n" +
+	"\x06detail\x18\t \x01(\tR\x06detail\x12*\n" +
+	"\x11pending_menu_hash\x18\n" +
+	" \x01(\tR\x0fpendingMenuHash\x120\n" +
+	"\x14pending_prescale_set\x18\v \x01(\tR\x12pendingPrescaleSet\x12\x1b\n" +
+	"\tmenu_name\x18\f \x01(\tR\bmenuName\x12\x19\n" +
+	"\buptime_s\x18\r \x01(\x01R\auptimeS\"4\n" +
 	"\x11WatchRatesRequest\x12\x1f\n" +
 	"\vinterval_ms\x18\x01 \x01(\rR\n" +
 	"intervalMs\"\\\n" +

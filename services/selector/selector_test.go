@@ -1,0 +1,76 @@
+package selector
+
+import (
+	"io/fs"
+	"strings"
+	"testing"
+
+	"github.com/prometheus/client_golang/prometheus"
+
+	"github.com/bunchsieve/bunchsieve/detector"
+	"github.com/bunchsieve/bunchsieve/examples"
+	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+	"github.com/bunchsieve/bunchsieve/trigger"
+)
+
+func starter(t *testing.T, replace ...string) *trigger.Menu {
+	t.Helper()
+	data, err := fs.ReadFile(examples.FS, examples.StarterMenu)
+	if err != nil {
+		t.Fatal(err)
+	}
+	text := string(data)
+	for i := 0; i+1 < len(replace); i += 2 {
+		text = strings.Replace(text, replace[i], replace[i+1], 1)
+	}
+	m, err := trigger.ParseMenu("starter.yaml", []byte(text))
+	if err != nil {
+		t.Fatal(err)
+	}
+	return m
+}
+
+// A menu loaded during a run takes effect at the first event of the next
+// lumi slice, no earlier and no later, even when late events of the old
+// slice still arrive.
+func TestLoadMenuAtLumiSliceBoundary(t *testing.T) {
+	old := starter(t)
+	next := starter(t, "met > 120 GeV", "met > 150 GeV")
+	s, err := New(Config{Menu: old, Geometry: detector.Lantern(), BatchDecisions: 1 << 30}, nil, prometheus.NewRegistry())
+	if err != nil {
+		t.Fatal(err)
+	}
+	decide := func(slice uint32) string {
+		s.mu.Lock()
+		defer s.mu.Unlock()
+		s.decide(&pb.BuiltEvent{LumiSlice: slice})
+		return s.out.Decisions[len(s.out.Decisions)-1].MenuHash
+	}
+	if h := decide(3); h != old.Hash {
+		t.Fatalf("first event decided with %s", h)
+	}
+	if err := s.LoadMenu(next, ""); err != nil {
+		t.Fatal(err)
+	}
+	if h, after := s.PendingMenu(); h != next.Hash || after != 3 {
+		t.Fatalf("pending %s after slice %d", h, after)
+	}
+	for _, slice := range []uint32{3, 2, 3} {
+		if h := decide(slice); h != old.Hash {
+			t.Fatalf("event of slice %d decided with the new menu before the boundary", slice)
+		}
+	}
+	if h := decide(4); h != next.Hash {
+		t.Fatalf("first event of slice 4 decided with %s, want the new menu", h)
+	}
+	if h := decide(3); h != next.Hash {
+		t.Fatalf("after the switch, a late event went back to the old menu")
+	}
+	if h, _ := s.PendingMenu(); h != "" {
+		t.Fatalf("still pending: %s", h)
+	}
+	bad := starter(t)
+	if err := s.LoadMenu(bad, "no-such-set"); err == nil {
+		t.Fatal("an unknown prescale set must be refused")
+	}
+}
