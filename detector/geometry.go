@@ -1,7 +1,10 @@
 // Package detector describes the detector and the machine that the readout
 // emulators and the selection share: the calorimeter tower grid and its
-// channel map, the partition of channels into readout sources, the bunch
-// clock and filling scheme, and the crossing generator.
+// channel map, the muon stations, the partition of channels into readout
+// sources, the bunch clock and filling scheme, and the crossing generators
+// (a toy one, a physics generator with detector response, and a reader of
+// HepMC generator files). docs/physics-model.md states the physics model
+// and where each of its numbers comes from.
 package detector
 
 import (
@@ -9,6 +12,7 @@ import (
 	"fmt"
 	"math"
 	"os"
+	"slices"
 	"strings"
 
 	"go.yaml.in/yaml/v3"
@@ -26,24 +30,114 @@ var lanternYAML []byte
 
 // Config is the detector and machine description read from YAML.
 type Config struct {
-	Name   string  `yaml:"name"`
-	FieldT float64 `yaml:"field_t"`
-	Calo   struct {
-		EtaMax        float64 `yaml:"eta_max"`
-		EtaStep       float64 `yaml:"eta_step"`
-		PhiBins       int     `yaml:"phi_bins"`
-		LeastCountGeV float64 `yaml:"least_count_gev"`
-		MaxCount      uint32  `yaml:"max_count"`
-	} `yaml:"calorimeter"`
-	Readout struct {
-		CaloSources int `yaml:"calo_sources"`
-	} `yaml:"readout"`
+	Name string `yaml:"name"`
+	// FieldT is the solenoid field in tesla along +z. The invented Lantern
+	// takes it uniform out to the last muon station (see MuonConfig).
+	FieldT          float64       `yaml:"field_t"`
+	Calo            CaloConfig    `yaml:"calorimeter"`
+	Muon            MuonConfig    `yaml:"muon"`
+	Readout         ReadoutConfig `yaml:"readout"`
 	Filling         FillingConfig `yaml:"filling"`
 	LumiSliceOrbits uint64        `yaml:"lumi_slice_orbits"`
 }
 
-// Geometry is the calorimeter tower grid with precomputed tower centres. It
-// is immutable after construction and safe for concurrent use.
+// CaloConfig is the calorimeter section of a description: the tower grid,
+// the digitisation and the response of each layer.
+type CaloConfig struct {
+	EtaMax        float64 `yaml:"eta_max"`
+	EtaStep       float64 `yaml:"eta_step"`
+	PhiBins       int     `yaml:"phi_bins"`
+	LeastCountGeV float64 `yaml:"least_count_gev"`
+	MaxCount      uint32  `yaml:"max_count"`
+	// InnerRadiusM is the radius of the barrel front face in m, where
+	// charged particles stop bending; zero means 1.5 m.
+	InnerRadiusM float64 `yaml:"inner_radius_m"`
+	// EndcapZM is |z| of the endcap front faces in m; zero means 3.6 m.
+	EndcapZM float64 `yaml:"endcap_z_m"`
+	// ZeroSuppressionCounts is the smallest count a tower is read out
+	// with; zero means 1 (every non-zero count is sent).
+	ZeroSuppressionCounts uint32 `yaml:"zero_suppression_counts"`
+	// EM and Had are the responses of the two layers.
+	EM  LayerResponse `yaml:"em"`
+	Had LayerResponse `yaml:"had"`
+}
+
+// LayerResponse is the energy response of one calorimeter layer, in the
+// form sigma/E = a/sqrt(E) (+) b/E (+) c (PDG review "Particle detectors at
+// accelerators", calorimetry). The stochastic and constant terms smear each
+// shower; the noise term b is not drawn per shower but comes from the
+// electronic noise of every tower the shower covers, b = NoiseGeV*sqrt(N)
+// for an N-tower cluster, so it is never counted twice.
+type LayerResponse struct {
+	// Stochastic is a, for E in GeV; zero means no stochastic term.
+	Stochastic float64 `yaml:"stochastic"`
+	// Constant is c; zero means no constant term.
+	Constant float64 `yaml:"constant"`
+	// NoiseGeV is the Gaussian rms of the electronic noise of one tower,
+	// in energy (not E_T); zero means no noise.
+	NoiseGeV float64 `yaml:"noise_gev"`
+	// Spread is the rms of the lateral shower profile in units of eta
+	// (and radians of phi); zero puts a whole shower into one tower.
+	Spread float64 `yaml:"spread"`
+}
+
+// Resolution returns sigma/E of a shower of energy e GeV read out over n
+// towers: a/sqrt(E) (+) NoiseGeV*sqrt(n)/E (+) c, in quadrature.
+func (l LayerResponse) Resolution(e float64, n int) float64 {
+	b := l.NoiseGeV * math.Sqrt(float64(n))
+	return math.Sqrt(l.Stochastic*l.Stochastic/e + b*b/(e*e) + l.Constant*l.Constant)
+}
+
+// MuonConfig is the muon system: barrel cylinders at fixed radii covering
+// |eta| < EtaMax. The invented Lantern takes the solenoid field uniform out
+// to the last station, so muons bend along their whole path (a real return
+// yoke reverses the field outside the solenoid).
+type MuonConfig struct {
+	// EtaMax is the acceptance of every station in the pseudorapidity of
+	// the hit position; it must be > 0 when there are stations.
+	EtaMax float64 `yaml:"eta_max"`
+	// MinMomentumGeV is the momentum a muon needs to cross the calorimeter
+	// and reach the stations; zero means every muon gets through.
+	MinMomentumGeV float64 `yaml:"min_momentum_gev"`
+	// Stations lists the stations by increasing radius; empty means no
+	// muon system.
+	Stations []MuonStation `yaml:"stations"`
+}
+
+// MuonStation is one barrel muon station.
+type MuonStation struct {
+	// RadiusM is the station radius in m; it must lie outside the
+	// calorimeter front face.
+	RadiusM float64 `yaml:"radius_m"`
+	// RPhiResolutionMm is the Gaussian rms of a hit along the station in
+	// the transverse plane, mm; zero means exact.
+	RPhiResolutionMm float64 `yaml:"rphi_resolution_mm"`
+	// ZResolutionMm is the Gaussian rms of a hit along z, mm; zero means
+	// exact.
+	ZResolutionMm float64 `yaml:"z_resolution_mm"`
+}
+
+// ReadoutConfig is the split into readout sources and their clocks.
+type ReadoutConfig struct {
+	// CaloSources is the default number of calorimeter sources (a run
+	// may choose another number).
+	CaloSources int `yaml:"calo_sources"`
+	// MuonSources is the number of muon sources, one per phi sector of
+	// equal width; zero means no muon sources.
+	MuonSources int `yaml:"muon_sources"`
+	// ClockOffsetMaxNs bounds each source's fixed clock offset: every
+	// source gets one offset drawn uniformly in +-ClockOffsetMaxNs per
+	// generator seed; zero means no offsets.
+	ClockOffsetMaxNs float64 `yaml:"clock_offset_max_ns"`
+	// ClockJitterNs is the Gaussian rms of each source's timestamp jitter
+	// from crossing to crossing; zero means none.
+	ClockJitterNs float64 `yaml:"clock_jitter_ns"`
+}
+
+// Geometry is the calorimeter tower grid with precomputed tower centres,
+// the calorimeter response, the muon stations and the field. It is
+// immutable after construction (callers must not modify the slices it
+// exposes) and safe for concurrent use.
 type Geometry struct {
 	Name          string
 	FieldT        float64
@@ -54,8 +148,37 @@ type Geometry struct {
 	LeastCountGeV float64
 	MaxCount      uint32
 
+	// InnerRadiusM and EndcapZM place the calorimeter front faces (m).
+	InnerRadiusM float64
+	EndcapZM     float64
+	// ZeroSuppressionCounts is the smallest count read out (>= 1).
+	ZeroSuppressionCounts uint32
+	// EM and Had are the layer responses.
+	EM, Had LayerResponse
+
+	// MuonEtaMax is the muon-station acceptance; MuonMinMomentumGeV the
+	// momentum a muon needs to reach the stations.
+	MuonEtaMax         float64
+	MuonMinMomentumGeV float64
+	// MuonStations lists the stations by increasing radius.
+	MuonStations []MuonStation
+	// MuonSources is the configured number of muon readout sources.
+	MuonSources int
+
 	etaCentre []float64
 	coshEta   []float64
+}
+
+// Layer returns the response of layer LayerEM or LayerHad; it panics for
+// another layer.
+func (g *Geometry) Layer(layer int) LayerResponse {
+	switch layer {
+	case LayerEM:
+		return g.EM
+	case LayerHad:
+		return g.Had
+	}
+	panic(fmt.Sprintf("detector: layer %d out of range", layer))
 }
 
 // Lantern returns the geometry of the invented default detector.
@@ -141,6 +264,22 @@ func NewGeometry(c Config) (*Geometry, error) {
 		Name: c.Name, FieldT: c.FieldT, EtaMax: k.EtaMax, EtaStep: k.EtaStep,
 		EtaBins: int(math.Round(nEta)), PhiBins: k.PhiBins,
 		LeastCountGeV: k.LeastCountGeV, MaxCount: k.MaxCount,
+		InnerRadiusM: k.InnerRadiusM, EndcapZM: k.EndcapZM,
+		ZeroSuppressionCounts: k.ZeroSuppressionCounts, EM: k.EM, Had: k.Had,
+		MuonEtaMax: c.Muon.EtaMax, MuonMinMomentumGeV: c.Muon.MinMomentumGeV,
+		MuonStations: slices.Clone(c.Muon.Stations), MuonSources: c.Readout.MuonSources,
+	}
+	if g.InnerRadiusM == 0 {
+		g.InnerRadiusM = 1.5
+	}
+	if g.EndcapZM == 0 {
+		g.EndcapZM = 3.6
+	}
+	if g.ZeroSuppressionCounts == 0 {
+		g.ZeroSuppressionCounts = 1
+	}
+	if err := g.validateResponse(c); err != nil {
+		return nil, err
 	}
 	g.etaCentre = make([]float64, g.EtaBins)
 	g.coshEta = make([]float64, g.EtaBins)
@@ -149,6 +288,61 @@ func NewGeometry(c Config) (*Geometry, error) {
 		g.coshEta[i] = math.Cosh(g.etaCentre[i])
 	}
 	return g, nil
+}
+
+// validateResponse checks the calorimeter response, the muon system and the
+// readout settings.
+func (g *Geometry) validateResponse(c Config) error {
+	finite := func(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
+	switch {
+	case !(g.InnerRadiusM > 0) || !finite(g.InnerRadiusM):
+		return fmt.Errorf("calorimeter.inner_radius_m = %v, want a finite value > 0", c.Calo.InnerRadiusM)
+	case !(g.EndcapZM > 0) || !finite(g.EndcapZM):
+		return fmt.Errorf("calorimeter.endcap_z_m = %v, want a finite value > 0", c.Calo.EndcapZM)
+	case g.ZeroSuppressionCounts > g.MaxCount:
+		return fmt.Errorf("calorimeter.zero_suppression_counts = %d is above max_count %d", g.ZeroSuppressionCounts, g.MaxCount)
+	}
+	for _, l := range []struct {
+		name string
+		r    LayerResponse
+	}{{"em", g.EM}, {"had", g.Had}} {
+		for _, v := range []struct {
+			key string
+			x   float64
+			max float64
+		}{{"stochastic", l.r.Stochastic, 10}, {"constant", l.r.Constant, 1}, {"noise_gev", l.r.NoiseGeV, 100}, {"spread", l.r.Spread, 1}} {
+			if !(v.x >= 0 && v.x <= v.max) {
+				return fmt.Errorf("calorimeter.%s.%s = %v, want 0..%v", l.name, v.key, v.x, v.max)
+			}
+		}
+	}
+	m := c.Muon
+	if len(m.Stations) > 0 && (!(m.EtaMax > 0) || !finite(m.EtaMax)) {
+		return fmt.Errorf("muon.eta_max = %v, want a finite value > 0", m.EtaMax)
+	}
+	if !(m.MinMomentumGeV >= 0) || !finite(m.MinMomentumGeV) {
+		return fmt.Errorf("muon.min_momentum_gev = %v, want a finite value >= 0", m.MinMomentumGeV)
+	}
+	prev := g.InnerRadiusM
+	for i, st := range m.Stations {
+		if !(st.RadiusM > prev) || !finite(st.RadiusM) {
+			return fmt.Errorf("muon.stations[%d].radius_m = %v, want a finite radius beyond %v m (calorimeter front, then increasing)", i, st.RadiusM, prev)
+		}
+		if !(st.RPhiResolutionMm >= 0) || !(st.ZResolutionMm >= 0) || !finite(st.RPhiResolutionMm) || !finite(st.ZResolutionMm) {
+			return fmt.Errorf("muon.stations[%d]: resolutions must be finite and >= 0", i)
+		}
+		prev = st.RadiusM
+	}
+	r := c.Readout
+	switch {
+	case r.MuonSources < 0 || r.MuonSources > maxMuonSources:
+		return fmt.Errorf("readout.muon_sources = %d, want 0..%d", r.MuonSources, maxMuonSources)
+	case !(r.ClockOffsetMaxNs >= 0) || !finite(r.ClockOffsetMaxNs):
+		return fmt.Errorf("readout.clock_offset_max_ns = %v, want a finite value >= 0", r.ClockOffsetMaxNs)
+	case !(r.ClockJitterNs >= 0) || !finite(r.ClockJitterNs):
+		return fmt.Errorf("readout.clock_jitter_ns = %v, want a finite value >= 0", r.ClockJitterNs)
+	}
+	return nil
 }
 
 // Towers returns the number of towers over both layers.

@@ -131,9 +131,10 @@ func (g *SimpleGenerator) Generate(n uint64, c *Crossing) {
 		pt := 2.5 * g.cfg.JetMinGeV * math.Pow(1-r.Float64(), -1.0/2)
 		phi := (2*r.Float64() - 1) * math.Pi
 		g.jet(c, (2*r.Float64()-1)*2.5, phi, pt)
-		// The recoil escapes unseen.
-		c.TrueMETx += pt * math.Cos(phi)
-		c.TrueMETy += pt * math.Sin(phi)
+		// The recoil escapes unseen, opposite the jet: the true missing
+		// momentum points along it.
+		c.TrueMETx -= pt * math.Cos(phi)
+		c.TrueMETy -= pt * math.Sin(phi)
 	}
 	g.digitise(c, geo)
 }
@@ -160,9 +161,10 @@ func (g *SimpleGenerator) deposit(c *Crossing, layer int, eta, phi, et float64) 
 	geo := g.desc.Geometry
 	ieta, iphi, ok := geo.Locate(eta, phi)
 	if !ok {
-		// Outside the calorimeter: it contributes to the true imbalance.
-		c.TrueMETx -= et * math.Cos(phi)
-		c.TrueMETy -= et * math.Sin(phi)
+		// Outside the calorimeter: it escapes, so it counts in the true
+		// missing momentum (the vector sum of what escapes).
+		c.TrueMETx += et * math.Cos(phi)
+		c.TrueMETy += et * math.Sin(phi)
 		return
 	}
 	t := geo.TowerIndex(layer, ieta, iphi)

@@ -43,7 +43,7 @@ func runRecord(ctx context.Context, e *env, args []string) error {
 		return usagef("--builders %d: want >= 1", *partitions)
 	}
 	cfg.Faults = append(cfg.Faults, faults...)
-	gen, sources, err := newGenerator(cfg)
+	gen, part, sources, err := newGenerator(cfg)
 	if err != nil {
 		return err
 	}
@@ -59,7 +59,7 @@ func runRecord(ctx context.Context, e *env, args []string) error {
 	}
 	w, err := recording.Create(*out, &pb.StreamHeader{
 		Run: cfg.Run, Seed: cfg.Seed, SourceIds: sources, Partitions: uint32(*partitions),
-		BatchCrossings: uint32(cfg.BatchCrossings), Generator: "simple", GeneratorConfig: string(genYAML),
+		BatchCrossings: uint32(cfg.BatchCrossings), Generator: generatorKind(cfg.Generator.Kind), GeneratorConfig: string(genYAML),
 		Detector: string(detYAML), CreatedUnixNs: time.Now().UnixNano(), Producer: "bunchsieve " + Version,
 	})
 	if err != nil {
@@ -67,7 +67,7 @@ func runRecord(ctx context.Context, e *env, args []string) error {
 	}
 	emu, err := emulator.New(emulator.Config{
 		Run: cfg.Run, Seed: cfg.Seed, Crossings: rf.crossings, BatchCrossings: cfg.BatchCrossings,
-		Partitions: *partitions, Faults: cfg.Faults,
+		Partitions: *partitions, Faults: cfg.Faults, Partition: part,
 	}, gen, sources, emulator.FileSink{W: w}, prometheus.NewRegistry())
 	if err != nil {
 		w.Close()
@@ -88,4 +88,11 @@ func runRecord(ctx context.Context, e *env, args []string) error {
 	fmt.Fprintf(e.stdout, "record: %d crossings, %d batches, %d fragments to %s in %.2fs\n",
 		t.Crossings, t.Batches, t.Fragments, *out, time.Since(start).Seconds())
 	return runErr
+}
+
+func generatorKind(k string) string {
+	if k == "" {
+		return detector.GeneratorSimple
+	}
+	return k
 }

@@ -115,7 +115,7 @@ func runReadout(ctx context.Context, e *env, args []string) error {
 		return usagef("--speed applies to --replay only")
 	}
 	cfg.Faults = append(cfg.Faults, faults...)
-	gen, sources, err := newGenerator(cfg)
+	gen, part, sources, err := newGenerator(cfg)
 	if err != nil {
 		return err
 	}
@@ -127,7 +127,7 @@ func runReadout(ctx context.Context, e *env, args []string) error {
 	reg := newRegistry()
 	emu, err := emulator.New(emulator.Config{
 		Run: cfg.Run, Seed: cfg.Seed, RateHz: cfg.RateHz, Crossings: rf.crossings, BatchCrossings: cfg.BatchCrossings,
-		Partitions: *partitions, Faults: cfg.Faults,
+		Partitions: *partitions, Faults: cfg.Faults, Partition: part,
 	}, gen, sources, emulator.NewNATSSink(nc, cfg.Subjects()), reg)
 	if err != nil {
 		return err
@@ -148,7 +148,7 @@ func runReadout(ctx context.Context, e *env, args []string) error {
 	if inj := emu.Injected(); inj != (emulator.InjectedCounts{}) {
 		fmt.Fprintf(e.stdout, "readout: injected %+v\n", inj)
 	}
-	s := &summary.Summary{Run: cfg.Run, Seed: cfg.Seed, Sources: cfg.Sources, DurationS: time.Since(start).Seconds(), Crossings: emu.Offered()}
+	s := &summary.Summary{Run: cfg.Run, Seed: cfg.Seed, Sources: len(sources), DurationS: time.Since(start).Seconds(), Crossings: emu.Offered()}
 	if rf.summary != "" {
 		if err := s.WriteJSON(rf.summary); err != nil {
 			return err
@@ -157,21 +157,22 @@ func runReadout(ctx context.Context, e *env, args []string) error {
 	return runErr
 }
 
-// newGenerator builds the run's crossing generator and its source ids.
-func newGenerator(cfg runconfig.Config) (detector.Generator, []uint32, error) {
+// newGenerator builds the run's crossing generator, its partition and the
+// ids of the sources that send fragments.
+func newGenerator(cfg runconfig.Config) (detector.Generator, *detector.Partition, []uint32, error) {
 	desc, err := cfg.LoadDetector()
 	if err != nil {
-		return nil, nil, err
+		return nil, nil, nil, err
 	}
-	part, err := detector.NewPartition(desc.Geometry, cfg.Sources)
+	part, sources, err := cfg.Readout(desc)
 	if err != nil {
-		return nil, nil, err
+		return nil, nil, nil, err
 	}
-	gen, err := detector.NewSimpleGenerator(desc, part, cfg.Seed, cfg.Generator)
+	gen, err := cfg.NewGenerator(desc, part)
 	if err != nil {
-		return nil, nil, err
+		return nil, nil, nil, err
 	}
-	return gen, part.SourceIDs(), nil
+	return gen, part, sources, nil
 }
 
 func replayStream(ctx context.Context, e *env, url, path string, speed float64, cfg runconfig.Config, rf runFlags) error {
@@ -226,6 +227,10 @@ func runBuild(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
+	_, sources, err := cfg.Readout(desc)
+	if err != nil {
+		return err
+	}
 	nc, err := transport.Connect(*url, "bunchsieve-build")
 	if err != nil {
 		return err
@@ -233,7 +238,7 @@ func runBuild(ctx context.Context, e *env, args []string) error {
 	defer nc.Close()
 	reg := newRegistry()
 	asm, err := assembler.New(assembler.Config{
-		Builder: cfg.BuilderConfig(cfg.SourceIDs()), Instance: *instance, Instances: *instances,
+		Builder: cfg.BuilderConfig(sources), Instance: *instance, Instances: *instances,
 		LumiSliceOrbits: desc.Config.LumiSliceOrbits, Subjects: cfg.Subjects(),
 	}, nc, reg)
 	if err != nil {
@@ -248,7 +253,7 @@ func runBuild(ctx context.Context, e *env, args []string) error {
 	runErr := asm.Run(ctx)
 	b := asm.Stats()
 	s := &summary.Summary{
-		Run: cfg.Run, Sources: cfg.Sources, DurationS: time.Since(start).Seconds(),
+		Run: cfg.Run, Sources: len(sources), DurationS: time.Since(start).Seconds(),
 		EventsBuilt: b.EventsComplete + b.EventsIncomplete, EventsComplete: b.EventsComplete, EventsIncomplete: b.EventsIncomplete,
 		Fragments: summary.Fragments{Received: b.Received, InEvents: b.InEvents, Duplicate: b.Duplicate, Late: b.Late,
 			Malformed: b.Malformed, UnknownSource: b.UnknownSource, OutOfTime: b.OutOfTime},

@@ -43,6 +43,9 @@ type Config struct {
 	MaxBatchAge time.Duration
 	// Faults lists readout faults to inject; empty means none.
 	Faults []Fault
+	// Partition says which sources read muon stations; nil means every
+	// source is a calorimeter source.
+	Partition *detector.Partition
 }
 
 func (c *Config) fill() error {
@@ -300,8 +303,14 @@ func (e *Emulator) add(c *detector.Crossing) error {
 
 // fill writes source id's share of crossing c into the reusable fragment f.
 func (e *Emulator) fill(f *pb.Fragment, c *detector.Crossing, id uint32) {
-	f.SourceId, f.Run, f.Orbit, f.Bcid, f.TimestampNs = id, e.cfg.Run, c.Orbit, c.Bcid, c.TimestampNs
+	f.SourceId, f.Run, f.Orbit, f.Bcid, f.TimestampNs = id, e.cfg.Run, c.Orbit, c.Bcid, c.SourceTimestamp(id)
 	f.Status = 0
+	if p := e.cfg.Partition; p != nil {
+		if pos, ok := p.MuonPosition(id); ok {
+			fillMuon(f, c, pos)
+			return
+		}
+	}
 	k := int(id - 1)
 	if k < len(c.Saturated) && c.Saturated[k] {
 		f.Status |= uint32(pb.FragmentStatus_FRAGMENT_STATUS_SATURATED)
@@ -320,11 +329,36 @@ func (e *Emulator) fill(f *pb.Fragment, c *detector.Crossing, id uint32) {
 	}
 }
 
+// fillMuon writes the hits of the muon source at position pos into f,
+// reusing its hit messages.
+func fillMuon(f *pb.Fragment, c *detector.Crossing, pos int) {
+	muon := f.GetMuon()
+	if muon == nil {
+		muon = &pb.MuonPayload{}
+		f.Payload = &pb.Fragment_Muon{Muon: muon}
+	}
+	var hits []detector.MuonHit
+	if pos < len(c.MuonHits) {
+		hits = c.MuonHits[pos]
+	}
+	for len(muon.Hits) < len(hits) {
+		muon.Hits = append(muon.Hits, &pb.MuonHit{})
+	}
+	muon.Hits = muon.Hits[:len(hits)]
+	for i, h := range hits {
+		muon.Hits[i].Station, muon.Hits[i].XMm, muon.Hits[i].YMm, muon.Hits[i].ZMm = uint32(h.Station), float32(h.X), float32(h.Y), float32(h.Z)
+	}
+}
+
 // corruptFragment flips one bit after sealing, the way a bad link would:
 // in a tower count when there is one, else in the checksum.
 func corruptFragment(f *pb.Fragment) {
 	if calo := f.GetCalo(); calo != nil && len(calo.EtCounts) > 0 {
 		calo.EtCounts[0] ^= 1
+		return
+	}
+	if muon := f.GetMuon(); muon != nil && len(muon.Hits) > 0 {
+		muon.Hits[0].Station ^= 1
 		return
 	}
 	f.Checksum ^= 1

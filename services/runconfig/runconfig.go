@@ -37,7 +37,7 @@ type Config struct {
 	// LumiSliceOrbits overrides the detector description's lumi-slice
 	// length; zero keeps it.
 	LumiSliceOrbits uint64                `yaml:"lumi_slice_orbits"`
-	Generator       detector.SimpleConfig `yaml:"generator"`
+	Generator       detector.GeneratorConfig `yaml:"generator"`
 	Builder         BuilderSettings       `yaml:"builder"`
 	// Faults are readout faults the emulator injects; empty means none.
 	Faults []emulator.Fault `yaml:"faults"`
@@ -170,11 +170,22 @@ func (c Config) BuilderConfig(sources []uint32) builder.Config {
 	return bc
 }
 
-// SourceIDs returns the calorimeter source ids 1..Sources.
-func (c Config) SourceIDs() []uint32 {
-	ids := make([]uint32, c.Sources)
-	for i := range ids {
-		ids[i] = uint32(i + 1)
+// Readout returns the run's partition of the detector into sources and the
+// ids of the sources that send fragments: the calorimeter sources, and the
+// muon sources when the generator models muons (the toy generator does
+// not, so its runs have no muon sources).
+func (c Config) Readout(d *detector.Description) (*detector.Partition, []uint32, error) {
+	part, err := detector.NewPartition(d.Geometry, c.Sources)
+	if err != nil {
+		return nil, nil, err
 	}
-	return ids
+	if c.Generator.Kind == "" || c.Generator.Kind == detector.GeneratorSimple {
+		return part, part.SourceIDs(), nil
+	}
+	return part, part.AllSourceIDs(), nil
+}
+
+// NewGenerator returns the run's crossing generator over d and part.
+func (c Config) NewGenerator(d *detector.Description, part *detector.Partition) (detector.Generator, error) {
+	return detector.NewGenerator(d, part, c.Seed, c.Generator)
 }

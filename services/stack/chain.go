@@ -51,6 +51,8 @@ type Chain struct {
 	emu   *emulator.Emulator
 	asm   *assembler.Assembler
 	sel   *selector.Selector
+	// sources is the number of sources sending fragments.
+	sources int
 
 	mu        sync.Mutex
 	started   time.Time
@@ -96,14 +98,15 @@ func (c *Chain) conn(name string) (*nats.Conn, error) {
 
 func (c *Chain) wire() error {
 	rc := c.opts.Run
-	part, err := detector.NewPartition(c.desc.Geometry, rc.Sources)
+	part, sources, err := rc.Readout(c.desc)
 	if err != nil {
 		return err
 	}
-	gen, err := detector.NewSimpleGenerator(c.desc, part, rc.Seed, rc.Generator)
+	gen, err := rc.NewGenerator(c.desc, part)
 	if err != nil {
 		return err
 	}
+	c.sources = len(sources)
 	ncE, err := c.conn("readout")
 	if err != nil {
 		return err
@@ -118,7 +121,8 @@ func (c *Chain) wire() error {
 	}
 	c.emu, err = emulator.New(emulator.Config{
 		Run: rc.Run, Seed: rc.Seed, RateHz: rc.RateHz, Crossings: c.opts.Crossings, BatchCrossings: rc.BatchCrossings, Faults: rc.Faults,
-	}, gen, part.SourceIDs(), emulator.NewNATSSink(ncE, rc.Subjects()), c.reg)
+		Partition: part,
+	}, gen, sources, emulator.NewNATSSink(ncE, rc.Subjects()), c.reg)
 	if err != nil {
 		return err
 	}
@@ -127,7 +131,7 @@ func (c *Chain) wire() error {
 		lumi = rc.LumiSliceOrbits
 	}
 	c.asm, err = assembler.New(assembler.Config{
-		Builder: rc.BuilderConfig(part.SourceIDs()), LumiSliceOrbits: lumi, Subjects: rc.Subjects(),
+		Builder: rc.BuilderConfig(sources), LumiSliceOrbits: lumi, Subjects: rc.Subjects(),
 	}, ncB, c.reg)
 	if err != nil {
 		return err
@@ -247,7 +251,7 @@ func (c *Chain) summary() *summary.Summary {
 	b := c.asm.Stats()
 	rc := c.opts.Run
 	sum := &summary.Summary{
-		Run: rc.Run, Seed: rc.Seed, Sources: rc.Sources, DurationS: c.Elapsed().Seconds(),
+		Run: rc.Run, Seed: rc.Seed, Sources: c.sources, DurationS: c.Elapsed().Seconds(),
 		Crossings:   c.emu.Offered(),
 		EventsBuilt: b.EventsComplete + b.EventsIncomplete, EventsComplete: b.EventsComplete, EventsIncomplete: b.EventsIncomplete,
 		EventsDecided: c.sel.Events(),
