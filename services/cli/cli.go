@@ -35,6 +35,7 @@ var commands = []command{
 	{"build", "run the event builder against a NATS server", runBuild},
 	{"select", "run the selection against a NATS server", runSelect},
 	{"record", "write generated crossings to a stream file for later replay", runRecord},
+	{"replay", "replay a stream or generated crossings through a menu and write the rates and efficiency report", runReplay},
 	{"menu", "work with menus: `menu check FILE` validates one and lists its rules", runMenu},
 	{"version", "print the version", func(_ context.Context, e *env, _ []string) error {
 		fmt.Fprintln(e.stdout, "bunchsieve", Version)
@@ -139,8 +140,7 @@ func newFlags(e *env, name, synopsis string) *flag.FlagSet {
 func parse(fs *flag.FlagSet, args []string, positional int) error {
 	if err := fs.Parse(args); err != nil {
 		if errors.Is(err, flag.ErrHelp) {
-			fs.Usage()
-			return err
+			return err // the flag set has printed the usage
 		}
 		return usagef("%s (see bunchsieve %s --help)", err, fs.Name())
 	}

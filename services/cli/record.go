@@ -57,7 +57,10 @@ func runRecord(ctx context.Context, e *env, args []string) error {
 			return err
 		}
 	}
-	w, err := recording.Create(*out, &pb.StreamHeader{
+	// The truth of every crossing goes into the file too, so that offline
+	// efficiencies (bunchsieve replay --efficiency RULE:truth-...) work on
+	// recorded streams.
+	w, err := recording.CreateWithTruth(*out, &pb.StreamHeader{
 		Run: cfg.Run, Seed: cfg.Seed, SourceIds: sources, Partitions: uint32(*partitions),
 		BatchCrossings: uint32(cfg.BatchCrossings), Generator: generatorKind(cfg.Generator.Kind), GeneratorConfig: string(genYAML),
 		Detector: string(detYAML), CreatedUnixNs: time.Now().UnixNano(), Producer: "bunchsieve " + Version,
@@ -68,7 +71,7 @@ func runRecord(ctx context.Context, e *env, args []string) error {
 	emu, err := emulator.New(emulator.Config{
 		Run: cfg.Run, Seed: cfg.Seed, Crossings: rf.crossings, BatchCrossings: cfg.BatchCrossings,
 		Partitions: *partitions, Faults: cfg.Faults, Partition: part,
-	}, gen, sources, emulator.FileSink{W: w}, prometheus.NewRegistry())
+	}, recording.RecordTruth(gen, w), sources, emulator.FileSink{W: w}, prometheus.NewRegistry())
 	if err != nil {
 		w.Close()
 		return err

@@ -29,6 +29,9 @@ type Reader struct {
 	raw     []byte
 	pos     int // next batch inside raw
 	err     error
+
+	onTruth  func(*TruthRecord)
+	truthRec TruthRecord
 }
 
 // Open opens path and reads its header.
@@ -66,9 +69,9 @@ func Open(path string) (*Reader, error) {
 		f.Close()
 		return nil, r.fail(int64(len(head)), "header does not decode: "+err.Error(), ErrCorrupt)
 	}
-	if r.header.FormatVersion != FormatVersion {
+	if v := r.header.FormatVersion; v != FormatVersion && v != FormatVersionTruth {
 		f.Close()
-		return nil, r.fail(int64(len(head)), fmt.Sprintf("format version %d, this build reads %d", r.header.FormatVersion, FormatVersion), ErrCorrupt)
+		return nil, r.fail(int64(len(head)), fmt.Sprintf("format version %d, this build reads %d and %d", v, FormatVersion, FormatVersionTruth), ErrCorrupt)
 	}
 	r.offset = int64(len(head)) + int64(n)
 	return r, nil
@@ -136,7 +139,8 @@ func (r *Reader) readFrame() error {
 	stored := binary.LittleEndian.Uint32(h[2:])
 	rawLen := binary.LittleEndian.Uint32(h[6:])
 	sum := binary.LittleEndian.Uint32(h[10:])
-	if (kind != kindBatches && kind != kindTrailer) || codec > codecS2 || stored > maxFrame || rawLen > maxFrame {
+	knownKind := kind == kindBatches || kind == kindTrailer || (kind == kindTruth && r.HasTruth())
+	if !knownKind || codec > codecS2 || stored > maxFrame || rawLen > maxFrame {
 		return r.fail(r.offset, fmt.Sprintf("bad frame header (kind %d, codec %d, length %d)", kind, codec, stored), ErrCorrupt)
 	}
 	if cap(r.stored) < int(stored) {
@@ -172,6 +176,12 @@ func (r *Reader) readFrame() error {
 		r.raw, r.pos = r.raw[:0], 0
 		return io.EOF
 	}
+	if kind == kindTruth {
+		// Truth frames hold no batches: hand the records over and leave
+		// the batch position empty, so Next reads on.
+		r.raw, r.pos = r.raw[:0], 0
+		return r.decodeTruth(raw)
+	}
 	// Decoding into r.raw's storage, or reading raw frames straight from
 	// r.stored, both leave the batches in raw until the next frame.
 	if codec == codecNone {
@@ -185,3 +195,7 @@ func (r *Reader) readFrame() error {
 
 // Close closes the file.
 func (r *Reader) Close() error { return r.f.Close() }
+
+// Offset returns the byte offset in the file of the next unread frame,
+// for progress reports.
+func (r *Reader) Offset() int64 { return r.offset }

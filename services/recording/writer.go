@@ -28,11 +28,20 @@ type Writer struct {
 	trailer pb.StreamTrailer
 	closed  bool
 	target  int // raw frame size; frameTarget except in tests
+
+	withTruth    bool   // the file may carry truth frames (format version 2)
+	truth        []byte // truth records not yet written
+	trailerTruth uint64 // truth records written
+	err          error  // the first error of the truth hook, returned later
 }
 
 // Create creates path and writes the header.
 func Create(path string, h *pb.StreamHeader) (*Writer, error) {
-	h.FormatVersion = FormatVersion
+	return create(path, h, FormatVersion)
+}
+
+func create(path string, h *pb.StreamHeader, version uint32) (*Writer, error) {
+	h.FormatVersion = version
 	hb, err := proto.Marshal(h)
 	if err != nil {
 		return nil, fmt.Errorf("recording: encode header: %w", err)
@@ -56,6 +65,9 @@ func Create(path string, h *pb.StreamHeader) (*Writer, error) {
 
 // WriteBatch appends one encoded FragmentBatch of fragments fragments.
 func (w *Writer) WriteBatch(source uint32, partition int, firstTimestampNs int64, data []byte, fragments int) error {
+	if w.err != nil {
+		return w.err
+	}
 	if partition < 0 || partition > 0xffff {
 		return fmt.Errorf("recording: partition %d out of range", partition)
 	}
@@ -78,6 +90,13 @@ func (w *Writer) WriteBatch(source uint32, partition int, firstTimestampNs int64
 func (w *Writer) AddCrossings(n uint64) { w.trailer.Crossings += n }
 
 func (w *Writer) writeFrame(kind byte, raw []byte) error {
+	if kind == kindBatches {
+		// Truth goes out first, so that a reader has the truth of a
+		// crossing before any of its fragments.
+		if err := w.flushTruth(); err != nil {
+			return err
+		}
+	}
 	codec := byte(codecNone)
 	stored := raw
 	// Compress where it pays: keep the compressed form only if it saves at
@@ -110,9 +129,12 @@ func (w *Writer) Close() error {
 		return nil
 	}
 	w.closed = true
-	var err error
-	if len(w.raw) > 0 {
+	err := w.err
+	if err == nil && len(w.raw) > 0 {
 		err = w.writeFrame(kindBatches, w.raw)
+	}
+	if err == nil {
+		err = w.flushTruth()
 	}
 	if err == nil {
 		var tb []byte

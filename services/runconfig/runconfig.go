@@ -36,9 +36,9 @@ type Config struct {
 	SubjectPrefix  string        `yaml:"subject_prefix"`
 	// LumiSliceOrbits overrides the detector description's lumi-slice
 	// length; zero keeps it.
-	LumiSliceOrbits uint64                `yaml:"lumi_slice_orbits"`
+	LumiSliceOrbits uint64                   `yaml:"lumi_slice_orbits"`
 	Generator       detector.GeneratorConfig `yaml:"generator"`
-	Builder         BuilderSettings       `yaml:"builder"`
+	Builder         BuilderSettings          `yaml:"builder"`
 	// Faults are readout faults the emulator injects; empty means none.
 	Faults []emulator.Fault `yaml:"faults"`
 }

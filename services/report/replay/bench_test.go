@@ -1,0 +1,145 @@
+package replay
+
+import (
+	"context"
+	"os"
+	"path/filepath"
+	"sync"
+	"testing"
+
+	"google.golang.org/protobuf/proto"
+
+	"github.com/bunchsieve/bunchsieve/detector"
+	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+	"github.com/bunchsieve/bunchsieve/trigger"
+)
+
+var (
+	benchOnce sync.Once
+	benchPath string
+)
+
+// TestMain removes the benchmark stream, recorded outside any test's
+// temporary directory so that every benchmark can share it.
+func TestMain(m *testing.M) {
+	code := m.Run()
+	if benchPath != "" {
+		os.RemoveAll(filepath.Dir(benchPath))
+	}
+	os.Exit(code)
+}
+
+// benchStream records, once per test binary, 20000 crossings of the
+// physics generator at pile-up 60 with the 16 calorimeter sources of the
+// built-in description.
+func benchStream(b *testing.B) string {
+	benchOnce.Do(func() {
+		d := detector.DefaultDescription()
+		part, err := detector.NewPartition(d.Geometry, 16)
+		if err != nil {
+			b.Fatal(err)
+		}
+		gen, err := detector.NewPhysicsGenerator(d, part, 42, detector.PhysicsConfig{Mu: 60})
+		if err != nil {
+			b.Fatal(err)
+		}
+		dir, err := os.MkdirTemp("", "replay-bench")
+		if err != nil {
+			b.Fatal(err)
+		}
+		p := recordStream(b, gen, part, 20000, true)
+		benchPath = filepath.Join(dir, "mu60.bss")
+		if err := os.Rename(p, benchPath); err != nil {
+			b.Fatal(err)
+		}
+	})
+	return benchPath
+}
+
+// BenchmarkReplayStream replays a recorded mu = 60 stream through the
+// builder and the starter menu, reading, decompressing, decoding and
+// checksumming included, and reports events per second.
+func BenchmarkReplayStream(b *testing.B) {
+	path := benchStream(b)
+	m := starterMenu(b)
+	info, _ := os.Stat(path)
+	b.SetBytes(info.Size())
+	b.ReportAllocs()
+	b.ResetTimer()
+	cpu0 := cpuSeconds()
+	events := uint64(0)
+	for b.Loop() {
+		src, err := OpenStream(path)
+		if err != nil {
+			b.Fatal(err)
+		}
+		sum, err := Run(context.Background(), src, Config{Menus: []*trigger.Menu{m}}, func(*Event) error { return nil })
+		if err != nil {
+			b.Fatal(err)
+		}
+		src.Close()
+		events += sum.Events
+	}
+	b.ReportMetric(float64(events)/b.Elapsed().Seconds(), "events/s")
+	if cpu := cpuSeconds() - cpu0; cpu > 0 {
+		b.ReportMetric(cpu/float64(events)*1e6, "cpu-us/event")
+	}
+}
+
+// hotEvent returns the fragments of one generated mu = 60 crossing and
+// their FragmentBatch encoding.
+func hotEvent(b *testing.B) ([]*pb.Fragment, []byte) {
+	d := detector.DefaultDescription()
+	part, err := detector.NewPartition(d.Geometry, 16)
+	if err != nil {
+		b.Fatal(err)
+	}
+	gen, err := detector.NewPhysicsGenerator(d, part, 3, detector.PhysicsConfig{Mu: 60, LibraryEvents: 100})
+	if err != nil {
+		b.Fatal(err)
+	}
+	var c detector.Crossing
+	gen.Generate(7, &c)
+	batch := &pb.FragmentBatch{}
+	for i, list := range c.PerSource {
+		calo := &pb.CaloPayload{}
+		for _, tc := range list {
+			calo.Towers = append(calo.Towers, tc.Tower)
+			calo.EtCounts = append(calo.EtCounts, tc.Counts)
+		}
+		batch.Fragments = append(batch.Fragments, &pb.Fragment{SourceId: uint32(i + 1), Payload: &pb.Fragment_Calo{Calo: calo}})
+	}
+	data, err := proto.Marshal(batch)
+	if err != nil {
+		b.Fatal(err)
+	}
+	return batch.Fragments, data
+}
+
+// BenchmarkDecodeBatch decodes the 16 fragments of one mu = 60 crossing.
+func BenchmarkDecodeBatch(b *testing.B) {
+	_, data := hotEvent(b)
+	pool := newFragmentPool()
+	var out []*pb.Fragment
+	b.SetBytes(int64(len(data)))
+	b.ReportAllocs()
+	for b.Loop() {
+		for _, f := range out {
+			pool.put(f)
+		}
+		out, _, _ = decodeBatch(data, pool, out[:0])
+	}
+}
+
+// BenchmarkTowerTable decodes the towers of one mu = 60 crossing for the
+// selection.
+func BenchmarkTowerTable(b *testing.B) {
+	frags, _ := hotEvent(b)
+	table := newTowerTable(detector.Lantern())
+	var ev trigger.Event
+	b.ReportAllocs()
+	for b.Loop() {
+		table.fill(frags, 1, &ev)
+	}
+	b.ReportMetric(float64(len(ev.Towers)), "towers/event")
+}

@@ -1,0 +1,212 @@
+package replay
+
+import (
+	"context"
+	"errors"
+	"io"
+	"math"
+	"reflect"
+	"testing"
+
+	"google.golang.org/protobuf/proto"
+
+	"github.com/bunchsieve/bunchsieve/builder"
+	"github.com/bunchsieve/bunchsieve/detector"
+	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+	"github.com/bunchsieve/bunchsieve/services/emulator"
+	"github.com/bunchsieve/bunchsieve/services/recording"
+	"github.com/bunchsieve/bunchsieve/services/selector"
+	"github.com/bunchsieve/bunchsieve/trigger"
+)
+
+// sequential decides a stream the plain way, one goroutine, with
+// proto.Unmarshal, the builder, selector.FillEvent and the selection
+// library's own Selector.Decide (prescales included): the reference the
+// parallel replay must match event by event.
+func sequential(t *testing.T, path string, m *trigger.Menu) []decided {
+	t.Helper()
+	r, err := recording.Open(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer r.Close()
+	h := r.Header()
+	d := detector.DefaultDescription()
+	g := d.Geometry
+	sel, err := trigger.NewSelector(m, trigger.Grid{EtaBins: g.EtaBins, PhiBins: g.PhiBins, EtaMin: -g.EtaMax, EtaStep: g.EtaStep})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var out []decided
+	var ev trigger.Event
+	var dec trigger.Decision
+	b, err := builder.New(builder.Config{Run: h.Run, Sources: h.SourceIds}, func(be *builder.Event) {
+		selector.FillEvent(g, be.Fragments, uint32(be.Orbit/d.Config.LumiSliceOrbits)+1, &ev)
+		sel.Decide(&ev, &dec)
+		out = append(out, decided{orbit: be.Orbit, bcid: be.Bcid, flags: be.Flags, accept: dec.Accept,
+			passed: append([]bool(nil), dec.Passed...), kept: append([]bool(nil), dec.Kept...)})
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var arrival int64
+	for {
+		rb, err := r.Next()
+		if errors.Is(err, io.EOF) {
+			break
+		}
+		if err != nil {
+			t.Fatal(err)
+		}
+		var batch pb.FragmentBatch
+		if err := proto.Unmarshal(rb.Data, &batch); err != nil {
+			t.Fatal(err)
+		}
+		for _, f := range batch.Fragments {
+			arrival = max(arrival, f.TimestampNs)
+			_ = b.Add(f, arrival, arrival)
+		}
+	}
+	b.Flush()
+	return out
+}
+
+// The parallel replay of a recorded stream, faults included, gives event
+// for event the decisions of the plain sequential chain, for any number
+// of workers and any chunk size.
+func TestReplayMatchesSequentialSelection(t *testing.T) {
+	gen, part := simpleGenerator(t, 3)
+	path := recordStream(t, gen, part, 4000, false,
+		emulator.Fault{Sources: []uint32{2, 7}, Drop: 0.02, Duplicate: 0.02, Corrupt: 0.01})
+	m := starterMenu(t)
+	want := sequential(t, path, m)
+	jets, _ := ParseQuantity("jets[0].et")
+	for _, c := range []struct{ workers, chunk int }{{1, 256}, {2, 37}, {3, 1}} {
+		src, err := OpenStream(path)
+		if err != nil {
+			t.Fatal(err)
+		}
+		got, sum := collect(t, src, Config{Menus: []*trigger.Menu{m}, Workers: c.workers, ChunkEvents: c.chunk, Values: []Quantity{jets}})
+		src.Close()
+		if len(got) != len(want) || sum.Events != uint64(len(want)) {
+			t.Fatalf("workers %d: %d events (summary %d), sequential %d", c.workers, len(got), sum.Events, len(want))
+		}
+		passes, kept := make([]int, len(m.Rules)), make([]int, len(m.Rules))
+		for i := range got {
+			g, w := got[i], want[i]
+			if g.orbit != w.orbit || g.bcid != w.bcid || g.flags != w.flags || g.accept != w.accept ||
+				!reflect.DeepEqual(g.passed, w.passed) || !reflect.DeepEqual(g.kept, w.kept) {
+				t.Fatalf("workers %d, event %d: replay %+v, sequential %+v", c.workers, i, g, w)
+			}
+			for k := range g.kept {
+				if g.passed[k] {
+					passes[k]++
+				}
+				if g.kept[k] {
+					kept[k]++
+				}
+			}
+		}
+		ps, _ := m.Prescales(m.ActiveSet)
+		for k := range passes {
+			if passes[k] == 0 || passes[k] >= ps[k] && kept[k] == 0 {
+				t.Errorf("rule %s passed %d and kept %d: the sample does not exercise it", m.Rules[k].Name, passes[k], kept[k])
+			}
+		}
+		if !sum.Builder.Balanced() || sum.Builder.Malformed == 0 || sum.Builder.Duplicate == 0 || sum.Builder.EventsIncomplete == 0 {
+			t.Errorf("builder accounting %+v: want balanced, with the injected faults counted", sum.Builder)
+		}
+	}
+}
+
+// A generator source gives the same events for any number of generating
+// and deciding workers, and every event carries its own crossing's truth.
+func TestGeneratorSourceDeterministic(t *testing.T) {
+	m := starterMenu(t)
+	met, _ := ParseQuantity("met")
+	var first []decided
+	for _, w := range []int{1, 2, 3} {
+		src, err := NewGeneratorSource(GeneratorConfig{Seed: 5, Crossings: 700, Workers: w,
+			Generator: detector.GeneratorConfig{Simple: detector.SimpleConfig{DijetFraction: 0.2}}})
+		if err != nil {
+			t.Fatal(err)
+		}
+		got, sum := collect(t, src, Config{Menus: []*trigger.Menu{m}, Workers: 4 - w, ChunkEvents: 50, Values: []Quantity{met}})
+		if len(got) != 700 || sum.TruthMatched != 700 || sum.Builder.EventsComplete != 700 {
+			t.Fatalf("%d events, %d with truth, summary %+v", len(got), sum.TruthMatched, sum)
+		}
+		for i, d := range got {
+			orbit, bcid := src.Sample().Description.Filling.Crossing(uint64(i))
+			if d.orbit != orbit || d.bcid != bcid || d.truthN != int64(i) || math.IsNaN(d.values[0]) {
+				t.Fatalf("event %d: %+v, want crossing %d at orbit %d bcid %d", i, d, i, orbit, bcid)
+			}
+		}
+		if first == nil {
+			first = got
+		} else if !reflect.DeepEqual(first, got) {
+			t.Fatalf("workers %d: events differ from workers 1", w)
+		}
+	}
+}
+
+// Truth records of a stream reach the events of their crossings.
+func TestStreamTruthReachesEvents(t *testing.T) {
+	d := detector.DefaultDescription()
+	part, err := detector.NewPartition(d.Geometry, 16)
+	if err != nil {
+		t.Fatal(err)
+	}
+	gen, err := detector.NewPhysicsGenerator(d, part, 4, detector.PhysicsConfig{Mu: 5, Force: "z-ee", LibraryEvents: 50})
+	if err != nil {
+		t.Fatal(err)
+	}
+	path := recordStream(t, gen, part, 300, true)
+	src, err := OpenStream(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer src.Close()
+	if !src.Sample().Truth || src.Sample().Kind != "stream" {
+		t.Fatalf("sample %+v", src.Sample())
+	}
+	var weights []float64
+	sum, err := Run(context.Background(), src, Config{Menus: []*trigger.Menu{starterMenu(t)}}, func(e *Event) error {
+		if e.Truth == nil || e.Truth.Orbit != e.Orbit || e.Truth.Bcid != e.Bcid || e.Truth.Truth.Process != detector.ProcessZee {
+			t.Fatalf("event %d (orbit %d bcid %d) has truth %+v", e.Seq, e.Orbit, e.Bcid, e.Truth)
+		}
+		weights = append(weights, e.Weight())
+		return nil
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if sum.TruthRecords != 300 || sum.TruthMatched != 300 || len(weights) != 300 {
+		t.Fatalf("summary %+v", sum)
+	}
+	want := gen.ExpectedPerCrossing(detector.ProcessZee)
+	for _, w := range weights {
+		if w != want {
+			t.Fatalf("weight %v, want the forced process's %v per crossing", w, want)
+		}
+	}
+}
+
+// A sink error stops the run and comes back.
+func TestSinkErrorStops(t *testing.T) {
+	src, err := NewGeneratorSource(GeneratorConfig{Seed: 1, Crossings: 5000})
+	if err != nil {
+		t.Fatal(err)
+	}
+	stop := errors.New("enough")
+	n := 0
+	_, err = Run(context.Background(), src, Config{Menus: []*trigger.Menu{starterMenu(t)}, ChunkEvents: 16}, func(*Event) error {
+		n++
+		if n == 100 {
+			return stop
+		}
+		return nil
+	})
+	if !errors.Is(err, stop) || n != 100 {
+		t.Fatalf("err %v after %d events", err, n)
+	}
+}

@@ -1,0 +1,279 @@
+package stats
+
+import (
+	"errors"
+	"fmt"
+	"math"
+
+	"gonum.org/v1/gonum/diff/fd"
+	"gonum.org/v1/gonum/mat"
+	"gonum.org/v1/gonum/optimize"
+)
+
+// TurnOn returns the error-function turn-on curve
+//
+//	eff(x) = plateau * (1 + erf((x - x50) / (sqrt(2) sigma))) / 2,
+//
+// the efficiency of a sharp threshold at x50 seen through a Gaussian
+// resolution of width sigma: eff(x50) = plateau/2, eff(x50 + sigma) =
+// 0.841345 plateau. A sigma of zero gives the sharp step.
+func TurnOn(x, x50, sigma, plateau float64) float64 {
+	if sigma == 0 {
+		switch {
+		case x > x50:
+			return plateau
+		case x == x50:
+			return plateau / 2
+		}
+		return 0
+	}
+	return plateau * (1 + math.Erf((x-x50)/(math.Sqrt2*math.Abs(sigma)))) / 2
+}
+
+// EffBin is one bin of an efficiency measurement: Pass of Total events at
+// reference value X (the bin centre).
+type EffBin struct {
+	X           float64
+	Pass, Total int
+}
+
+// TurnOnFit is the result of FitTurnOn. Cov is the covariance matrix of
+// (X50, Sigma, Plateau), in that order: the inverse of the Hessian of the
+// negative log-likelihood at its minimum.
+type TurnOnFit struct {
+	X50, Sigma, Plateau          float64
+	X50Err, SigmaErr, PlateauErr float64
+	Cov                          [3][3]float64
+	// Deviance is the likelihood-ratio goodness of fit against the
+	// saturated model (one free efficiency per bin), about chi-square
+	// distributed with NDF degrees of freedom for well-filled bins.
+	Deviance float64
+	NDF      int
+	// Bins is the number of bins with events.
+	Bins int
+	// PlateauFixed is set when the best plateau would exceed 1: it is
+	// then fixed at 1, with zero error, and the fit has one more degree
+	// of freedom.
+	PlateauFixed bool
+}
+
+// ErrFitFailed is wrapped by FitTurnOn errors: too few filled bins, a fit
+// that does not converge, or a Hessian that cannot be inverted.
+var ErrFitFailed = errors.New("stats: turn-on fit failed")
+
+// FitTurnOn fits TurnOn to binned efficiency data by binned maximum
+// likelihood: each bin's Pass is binomial of Total with probability
+// TurnOn(X), evaluated at the bin centre. It minimises the negative
+// log-likelihood with BFGS on its analytic gradient from a start read off
+// the data, then takes the covariance from the inverse of the Hessian,
+// computed by central finite differences. A plateau above 1 is refitted
+// fixed at 1 (PlateauFixed). It needs at least four bins with events. The
+// fit is deterministic.
+func FitTurnOn(bins []EffBin) (TurnOnFit, error) {
+	var used []EffBin
+	for _, b := range bins {
+		if b.Pass < 0 || b.Pass > b.Total {
+			return TurnOnFit{}, fmt.Errorf("%w: bin at %v has %d of %d", ErrFitFailed, b.X, b.Pass, b.Total)
+		}
+		if b.Total > 0 {
+			used = append(used, b)
+		}
+	}
+	if len(used) < 4 {
+		return TurnOnFit{}, fmt.Errorf("%w: %d bins with events, need at least 4", ErrFitFailed, len(used))
+	}
+	x0 := startValues(used)
+	out, err := fit(used, x0, false)
+	if err != nil || out.Plateau > 1 {
+		// An efficiency cannot exceed 1. A best plateau above 1 (where the
+		// likelihood, clipped at 1, also loses its curvature) means the
+		// maximum lies on the boundary: the plateau is fixed there and the
+		// other two parameters refitted.
+		fixed := append([]float64(nil), x0...)
+		fixed[2] = 1
+		if alt, altErr := fit(used, fixed, true); altErr == nil && (err != nil || alt.Plateau <= 1) {
+			out, err = alt, nil
+		}
+	}
+	if err != nil {
+		return TurnOnFit{}, err
+	}
+	out.Bins, out.NDF = len(used), len(used)-3
+	if out.PlateauFixed {
+		out.NDF++
+	}
+	p := []float64{out.X50, out.Sigma, out.Plateau}
+	out.Deviance = deviance(used, p)
+	return out, nil
+}
+
+// fit minimises the negative log-likelihood from x0, with the plateau
+// fixed at x0[2] when fixPlateau is set, and takes the covariance of the
+// free parameters from the inverse Hessian.
+func fit(used []EffBin, x0 []float64, fixPlateau bool) (TurnOnFit, error) {
+	free := 3
+	if fixPlateau {
+		free = 2
+	}
+	full := func(q []float64) []float64 {
+		if fixPlateau {
+			return []float64{q[0], q[1], x0[2]}
+		}
+		return q
+	}
+	nll := func(q []float64) float64 { return negLogLikelihood(used, full(q)) }
+	g3 := make([]float64, 3)
+	prob := optimize.Problem{
+		Func: nll,
+		Grad: func(g, q []float64) {
+			gradient(used, full(q), g3)
+			copy(g, g3[:free])
+		},
+	}
+	res, err := optimize.Minimize(prob, append([]float64(nil), x0[:free]...), &optimize.Settings{
+		GradientThreshold: 1e-9,
+		Converger:         &optimize.FunctionConverge{Absolute: 1e-12, Relative: 1e-12, Iterations: 200},
+		MajorIterations:   2000,
+	}, &optimize.BFGS{})
+	if err != nil && res == nil {
+		return TurnOnFit{}, fmt.Errorf("%w: %v", ErrFitFailed, err)
+	}
+	q := append([]float64(nil), res.X...)
+	q[1] = math.Abs(q[1])
+	span := used[len(used)-1].X - used[0].X
+	if math.IsNaN(q[0]) || math.IsNaN(q[1]) || (!fixPlateau && math.IsNaN(q[2])) {
+		return TurnOnFit{}, fmt.Errorf("%w: no minimum", ErrFitFailed)
+	}
+	if q[1] < 1e-6*span {
+		return TurnOnFit{}, fmt.Errorf("%w: the turn-on is a step sharper than the bins resolve, so it has no width to fit", ErrFitFailed)
+	}
+	var h mat.SymDense
+	fd.Hessian(&h, nll, q, &fd.Settings{Formula: fd.Central})
+	var chol mat.Cholesky
+	if !chol.Factorize(&h) {
+		return TurnOnFit{}, fmt.Errorf("%w: the likelihood has no curvature at its minimum (a step sharper than the bins, or too few events in the rise)", ErrFitFailed)
+	}
+	var cov mat.SymDense
+	if err := chol.InverseTo(&cov); err != nil {
+		return TurnOnFit{}, fmt.Errorf("%w: %v", ErrFitFailed, err)
+	}
+	p := full(q)
+	out := TurnOnFit{X50: p[0], Sigma: p[1], Plateau: p[2], PlateauFixed: fixPlateau}
+	for i := range free {
+		for j := range free {
+			out.Cov[i][j] = cov.At(i, j)
+		}
+	}
+	out.X50Err, out.SigmaErr, out.PlateauErr = math.Sqrt(out.Cov[0][0]), math.Sqrt(out.Cov[1][1]), math.Sqrt(out.Cov[2][2])
+	return out, nil
+}
+
+// clampP keeps a probability away from 0 and 1 so the log-likelihood stays
+// finite when the curve is flat at either end.
+func clampP(p float64) (float64, bool) {
+	const eps = 1e-12
+	switch {
+	case p < eps:
+		return eps, true
+	case p > 1-eps:
+		return 1 - eps, true
+	}
+	return p, false
+}
+
+func negLogLikelihood(bins []EffBin, par []float64) float64 {
+	s := 0.0
+	for _, b := range bins {
+		p, _ := clampP(TurnOn(b.X, par[0], par[1], par[2]))
+		k, n := float64(b.Pass), float64(b.Total)
+		s -= k*math.Log(p) + (n-k)*math.Log1p(-p)
+	}
+	return s
+}
+
+// gradient is the analytic gradient of negLogLikelihood: with z = (x -
+// x50)/sigma, Phi the normal distribution and phi its density,
+// dp/dx50 = -plateau phi/sigma, dp/dsigma = -plateau phi z/sigma,
+// dp/dplateau = Phi.
+func gradient(bins []EffBin, par, g []float64) {
+	g[0], g[1], g[2] = 0, 0, 0
+	x50, sigma, plateau := par[0], math.Abs(par[1]), par[2]
+	sign := 1.0
+	if par[1] < 0 {
+		sign = -1
+	}
+	if sigma == 0 {
+		return
+	}
+	for _, b := range bins {
+		z := (b.X - x50) / sigma
+		cdf := (1 + math.Erf(z/math.Sqrt2)) / 2
+		pdf := math.Exp(-z*z/2) / math.Sqrt(2*math.Pi)
+		p, clamped := clampP(plateau * cdf)
+		if clamped {
+			continue
+		}
+		k, n := float64(b.Pass), float64(b.Total)
+		dl := -(k/p - (n-k)/(1-p))
+		g[0] += dl * (-plateau * pdf / sigma)
+		g[1] += dl * (-plateau * pdf * z / sigma) * sign
+		g[2] += dl * cdf
+	}
+}
+
+func startValues(bins []EffBin) []float64 {
+	eff := func(b EffBin) float64 { return float64(b.Pass) / float64(b.Total) }
+	// The plateau: the mean efficiency of the top quarter of bins (at
+	// least one), by reference value.
+	top := max(1, len(bins)/4)
+	var sk, sn float64
+	for _, b := range bins[len(bins)-top:] {
+		sk += float64(b.Pass)
+		sn += float64(b.Total)
+	}
+	plateau := sk / sn
+	if plateau <= 0 {
+		plateau = 0.5
+	}
+	// x50 and sigma from where the data cross 16%, 50% and 84% of the
+	// plateau, interpolating between bins.
+	cross := func(level float64) (float64, bool) {
+		for i := 1; i < len(bins); i++ {
+			a, b := eff(bins[i-1]), eff(bins[i])
+			if a < level && b >= level {
+				return bins[i-1].X + (level-a)/(b-a)*(bins[i].X-bins[i-1].X), true
+			}
+		}
+		return 0, false
+	}
+	lo, hi := bins[0].X, bins[len(bins)-1].X
+	x50, ok := cross(plateau / 2)
+	if !ok {
+		x50 = (lo + hi) / 2
+	}
+	sigma := (hi - lo) / 10
+	if a, okA := cross(0.16 * plateau); okA {
+		if b, okB := cross(0.84 * plateau); okB && b > a {
+			sigma = (b - a) / 2
+		}
+	}
+	if !(sigma > 0) {
+		sigma = math.Max((hi-lo)/10, 1e-3)
+	}
+	return []float64{x50, sigma, math.Min(plateau, 1)}
+}
+
+func deviance(bins []EffBin, par []float64) float64 {
+	d := 0.0
+	for _, b := range bins {
+		p, _ := clampP(TurnOn(b.X, par[0], par[1], par[2]))
+		k, n := float64(b.Pass), float64(b.Total)
+		if k > 0 {
+			d += 2 * k * math.Log(k/(n*p))
+		}
+		if n-k > 0 {
+			d += 2 * (n - k) * math.Log((n-k)/(n*(1-p)))
+		}
+	}
+	return d
+}
