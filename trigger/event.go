@@ -5,16 +5,35 @@ import (
 	"math"
 )
 
-// Grid describes the calorimeter tower grid. Cell ieta lies in
-// [0, EtaBins) with centre EtaMin+(ieta+0.5)*EtaStep; cell iphi lies in
-// [0, PhiBins) with centre -pi+(iphi+0.5)*2pi/PhiBins. Each cell has two
-// layers: 0 electromagnetic, 1 hadronic.
+// Grid describes the detector as the features see it: the calorimeter
+// tower grid and the solenoid field. Cell ieta lies in [0, EtaBins) with
+// centre EtaMin+(ieta+0.5)*EtaStep; cell iphi lies in [0, PhiBins) with
+// centre -pi+(iphi+0.5)*2pi/PhiBins. Each cell has two layers: 0
+// electromagnetic, 1 hadronic.
 //
 // The zero Grid has no cells: towers are then off the grid and only the
-// features that use tower eta and phi directly (MET, sum ET) see them.
+// features that use tower eta and phi directly (MET, sum ET, anti-kt jets on
+// towers) see them. Its field is DefaultFieldT.
 type Grid struct {
 	EtaBins, PhiBins int
 	EtaMin, EtaStep  float64
+	// FieldT is the solenoid field along +z in tesla, used by the muon
+	// finders to turn curvature into transverse momentum. Zero means
+	// DefaultFieldT; a negative value is a field along -z.
+	FieldT float64
+}
+
+// DefaultFieldT is the field a Grid with FieldT zero stands for: the 3.0 T
+// solenoid of the demo detector (docs/menu.md, "Muons").
+const DefaultFieldT = 3.0
+
+// Field returns the solenoid field in tesla: FieldT, or DefaultFieldT when
+// FieldT is zero.
+func (g Grid) Field() float64 {
+	if g.FieldT == 0 {
+		return DefaultFieldT
+	}
+	return g.FieldT
 }
 
 // Validate reports a grid that cannot hold towers. Grid-based algorithms
@@ -70,9 +89,20 @@ type Tower struct {
 	ET         float64
 }
 
+// MuonHit is one muon-station hit: X and Y in the transverse plane and Z
+// along the beam, in mm from the nominal interaction point. Station numbers
+// the stations from the innermost, 0; a candidate uses at most one hit per
+// station.
+type MuonHit struct {
+	Station int
+	X, Y, Z float64
+}
+
 // Event is what the selection sees of one bunch crossing: the calorimeter
-// towers and the lumi slice the crossing belongs to.
+// towers, the muon-station hits and the lumi slice the crossing belongs
+// to.
 type Event struct {
 	Towers    []Tower
+	MuonHits  []MuonHit
 	LumiSlice uint32
 }

@@ -1,6 +1,9 @@
 package trigger
 
-import "math"
+import (
+	"math"
+	"slices"
+)
 
 // FeatureConfig says how features are computed from the towers of an
 // event. The zero value is usable: every tower with a finite, non-negative
@@ -62,22 +65,31 @@ type Features struct {
 	scalarFields [][]Field
 	in           Input
 
-	// phiCentre, phiSin and phiCos hold the centre of each phi column of
-	// the grid and its sine and cosine, the same values math.Sincos gives.
-	phiCentre, phiSin, phiCos []float64
+	// hotCut and layers are what the algorithms of the layout ask for
+	// (CellNeeds): the cut of Input.Hot (+Inf: none) and the per-layer
+	// cells.
+	hotCut float64
+	layers bool
+
+	// phiTab holds the centre of each phi column of the grid and its sine
+	// and cosine, the same values math.Sincos gives.
+	phiTab []phiColumn
 }
 
+// phiColumn is the direction of one phi column, kept together so that one
+// tower's lookup reads one cache line.
+type phiColumn struct{ centre, sin, cos float64 }
+
 func (f *Features) phiTable(g Grid, valid bool) {
-	f.phiCentre, f.phiSin, f.phiCos = nil, nil, nil
+	f.phiTab = nil
 	if !valid {
 		return
 	}
-	f.phiCentre = make([]float64, g.PhiBins)
-	f.phiSin = make([]float64, g.PhiBins)
-	f.phiCos = make([]float64, g.PhiBins)
-	for i := range f.phiCentre {
-		f.phiCentre[i] = g.PhiCentre(i)
-		f.phiSin[i], f.phiCos[i] = math.Sincos(f.phiCentre[i])
+	f.phiTab = make([]phiColumn, g.PhiBins)
+	for i := range f.phiTab {
+		c := g.PhiCentre(i)
+		s, co := math.Sincos(c)
+		f.phiTab[i] = phiColumn{c, s, co}
 	}
 }
 
@@ -134,6 +146,16 @@ func (f *Features) layout(cfg *FeatureConfig) {
 		nsc += len(sc.Scalars)
 	}
 	f.scalars = make([]float64, nsc)
+	f.hotCut, f.layers = math.Inf(1), false
+	for _, cc := range cfg.Collections {
+		if r, ok := cc.Algorithm.(CellReader); ok {
+			n := r.CellNeeds()
+			if n.Hot {
+				f.hotCut = min(f.hotCut, max(n.MinET, 0))
+			}
+			f.layers = f.layers || n.Layers
+		}
+	}
 	k := builtinScalars
 	for i := range f.outs {
 		m := len(f.scalarFields[i])
@@ -165,11 +187,18 @@ func computeFeatures(ev *Event, cfg *FeatureConfig, f *Features) {
 	f.layout(cfg)
 	in := &f.in
 	// Clear the cells of the previous event only, not the whole grid.
-	for _, c := range in.Touched {
-		in.Cells[c] = 0
+	if em := in.EMCells; em != nil {
+		for _, c := range in.Touched {
+			in.Cells[c], em[c] = 0, 0
+		}
+	} else {
+		for _, c := range in.Touched {
+			in.Cells[c] = 0
+		}
 	}
 	in.Touched = in.Touched[:0]
 	in.Selected = in.Selected[:0]
+	in.Hot = in.Hot[:0]
 	g := cfg.Grid
 	cells := 0
 	if g.Validate() == nil {
@@ -177,55 +206,100 @@ func computeFeatures(ev *Event, cfg *FeatureConfig, f *Features) {
 	}
 	if len(in.Cells) != cells || in.Grid != g {
 		in.Cells = make([]float64, cells)
+		in.EMCells = nil
 		f.phiTable(g, cells > 0)
 	}
+	if f.layers && cells > 0 && in.EMCells == nil {
+		in.EMCells = make([]float64, cells)
+	}
+	if !f.layers {
+		in.EMCells = nil
+	}
 	in.Grid, in.Event = g, ev
+	in.HotCut = f.hotCut
 
-	cut := cfg.NoiseCut
+	// Towers with negative E_T are always ignored: lo folds that into the
+	// noise cut. The fast path below tests the cuts only; a tower that
+	// fails them, NaN and infinities included, is sorted out in the slow
+	// path.
+	lo := max(cfg.NoiseCut, 0)
 	etaMin, etaMax := cfg.EtaMin, cfg.EtaMax
 	if etaMax <= 0 {
-		etaMax = math.Inf(1)
+		etaMax = math.MaxFloat64
 	}
 	var sx, sy, sum float64
-	f.Used, f.Bad, f.OffGrid = 0, 0, 0
-	cellsV := in.Cells
-	for i := range ev.Towers {
-		t := &ev.Towers[i]
-		if !finite(t.ET) || !finite(t.Eta) || !finite(t.Phi) {
-			f.Bad++
+	bad, offGrid := 0, 0
+	cellsV, em := in.Cells, in.EMCells
+	layers := em != nil
+	hotCut := f.hotCut
+	neta, nphi := uint(0), uint(0)
+	if cells > 0 {
+		neta, nphi = uint(g.EtaBins), uint(g.PhiBins)
+	}
+	phiTab := f.phiTab
+	towers := ev.Towers
+	// Room for every tower and cell up front, so that the loop stores
+	// without checking capacity.
+	selected := slices.Grow(in.Selected[:0], len(towers))[:len(towers)]
+	touched := slices.Grow(in.Touched[:0], cells)[:cells]
+	hot := slices.Grow(in.Hot[:0], cells)[:cells]
+	nsel, ntouch, nhot := 0, 0, 0
+	for i := range towers {
+		t := &towers[i]
+		et := t.ET
+		a := math.Abs(t.Eta)
+		if !(et >= lo && et <= math.MaxFloat64 && a >= etaMin && a <= etaMax) {
+			if !finite(et) || !finite(t.Eta) || !finite(t.Phi) {
+				bad++
+			}
 			continue
 		}
-		if t.ET < cut || t.ET < 0 {
-			continue
-		}
-		if a := math.Abs(t.Eta); a < etaMin || a > etaMax {
-			continue
-		}
-		f.Used++
 		var sin, cos float64
-		if uint(t.IPhi) < uint(len(f.phiCentre)) && f.phiCentre[t.IPhi] == t.Phi {
+		if uint(t.IPhi) < uint(len(phiTab)) && phiTab[t.IPhi].centre == t.Phi {
 			// Most towers sit at their cell centre: look the direction up.
-			sin, cos = f.phiSin[t.IPhi], f.phiCos[t.IPhi]
+			pc := &phiTab[t.IPhi]
+			sin, cos = pc.sin, pc.cos
 		} else {
+			if !finite(t.Phi) {
+				bad++
+				continue
+			}
 			sin, cos = math.Sincos(t.Phi)
 		}
-		sx += t.ET * cos
-		sy += t.ET * sin
-		sum += t.ET
-		in.Selected = append(in.Selected, int32(i))
-		if cells == 0 || t.IEta < 0 || t.IEta >= g.EtaBins || t.IPhi < 0 || t.IPhi >= g.PhiBins {
-			f.OffGrid++
+		sx += et * cos
+		sy += et * sin
+		sum += et
+		selected[nsel] = int32(i)
+		nsel++
+		if uint(t.IEta) >= neta || uint(t.IPhi) >= nphi {
+			offGrid++
 			continue
 		}
-		if t.ET == 0 {
+		if et == 0 {
 			continue // adds nothing, and a cell is touched only when it holds energy
 		}
-		c := t.IEta*g.PhiBins + t.IPhi
-		if cellsV[c] == 0 {
-			in.Touched = append(in.Touched, int32(c))
+		c := t.IEta*int(nphi) + t.IPhi
+		old := cellsV[c]
+		// Stored always, counted when new: no branch to mispredict.
+		touched[ntouch] = int32(c)
+		if old == 0 {
+			ntouch++
 		}
-		cellsV[c] += t.ET
+		nv := old + et
+		cellsV[c] = nv
+		// E_T only grows, so a cell reaches the cut at most once.
+		hot[nhot] = int32(c)
+		if nv >= hotCut && (old < hotCut || old == 0) {
+			nhot++
+		}
+		if layers && t.Layer == 0 {
+			em[c] += et
+		}
 	}
+	selected, touched, hot = selected[:nsel], touched[:ntouch], hot[:nhot]
+	used := nsel
+	in.Selected, in.Touched, in.Hot = selected, touched, hot
+	f.Used, f.Bad, f.OffGrid = used, bad, offGrid
 	// 0 - s rather than -s, so that an empty event has METx = +0 and
 	// METPhi = atan2(+0, +0) = 0 rather than -pi.
 	f.METx, f.METy = 0-sx, 0-sy

@@ -8,8 +8,10 @@ import (
 )
 
 func FuzzParseMenu(f *testing.F) {
-	if data, err := os.ReadFile(starterPath); err == nil {
-		f.Add(data)
+	for _, path := range []string{starterPath, physicsMenuPath} {
+		if data, err := os.ReadFile(path); err == nil {
+			f.Add(data)
+		}
 	}
 	f.Add([]byte(hashBase))
 	f.Add([]byte(hashSame))
@@ -19,6 +21,7 @@ func FuzzParseMenu(f *testing.F) {
 	}
 	g := lanternGrid()
 	ev := &Event{LumiSlice: 1, Towers: []Tower{cellTower(g, 0, 40, 10, 120), cellTower(g, 1, 41, 10, 30), cellTower(g, 0, 12, 50, 60)}}
+	ev.MuonHits = helixHits(40, 0.5, 1, 1, 0, 3, lanternStations)
 	f.Fuzz(func(t *testing.T, data []byte) {
 		m, err := ParseMenu("fuzz.yaml", data)
 		if err != nil {

@@ -64,10 +64,41 @@ func (r *Registry) Names() []string {
 	return names
 }
 
-// RegisterStandard registers the algorithms of this package: "window", the
-// sliding-window jet finder.
+// RegisterStandard registers the algorithms of this package under their
+// names: "window" (sliding-window jets), "antikt" (anti-kt jets),
+// "em-cluster" (electromagnetic clusters with isolation), "muon-road" (muon
+// candidates from station hits) and "narrow-cluster" (narrow hadronic
+// clusters). It panics if r already holds one of these names.
 func RegisterStandard(r *Registry) {
-	r.Register("window", newWindowFinderFromParams)
+	names := make([]string, 0, len(standardFactories))
+	for n := range standardFactories {
+		names = append(names, n)
+	}
+	sort.Strings(names)
+	for _, n := range names {
+		r.Register(n, standardFactories[n])
+	}
+}
+
+// standardFactories holds the algorithms RegisterStandard registers. The
+// file of each algorithm adds it with a package-level
+//
+//	var _ = standardAlgorithm("name", factory)
+//
+// so that adding an algorithm to this package touches no other file.
+var standardFactories = map[string]Factory{}
+
+// standardAlgorithm adds f to the standard algorithms under name. It panics
+// on an empty name, a nil factory or a name used twice, like Register.
+func standardAlgorithm(name string, f Factory) bool {
+	if name == "" || f == nil {
+		panic(fmt.Sprintf("trigger: standard algorithm %q with an empty name or a nil factory", name))
+	}
+	if _, dup := standardFactories[name]; dup {
+		panic(fmt.Sprintf("trigger: standard algorithm %q defined twice", name))
+	}
+	standardFactories[name] = f
+	return true
 }
 
 var (

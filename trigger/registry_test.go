@@ -153,7 +153,7 @@ func TestRegistry(t *testing.T) {
 			reg()
 		}()
 	}
-	if got := StandardRegistry().Names(); !slices.Equal(got, []string{"window"}) {
+	if got := StandardRegistry().Names(); !slices.Equal(got, []string{"antikt", "em-cluster", "muon-road", "narrow-cluster", "window"}) {
 		t.Fatalf("standard algorithms %v", got)
 	}
 }

@@ -54,7 +54,10 @@ type WindowFinder struct {
 var (
 	_ Algorithm     = (*WindowFinder)(nil)
 	_ GridValidator = (*WindowFinder)(nil)
+	_ CellReader    = (*WindowFinder)(nil)
 )
+
+var _ = standardAlgorithm("window", newWindowFinderFromParams)
 
 var windowFields = []Field{{Name: "et", Kind: Energy}, {Name: "eta", Kind: Number}, {Name: "phi", Kind: Angle}}
 
@@ -115,6 +118,9 @@ func (w *WindowFinder) Schema() Schema { return w.schema }
 // ValidateGrid reports a grid the finder cannot work on.
 func (w *WindowFinder) ValidateGrid(g Grid) error { return g.Validate() }
 
+// CellNeeds asks for the cells that can be a jet's centre: E_T >= Seed.
+func (w *WindowFinder) CellNeeds() CellNeeds { return CellNeeds{Hot: true, MinET: w.cfg.Seed} }
+
 // windowJet is one jet of the sliding-window finder; cell is the index
 // ieta*PhiBins+iphi of its central cell, the last tie-break of the sort.
 type windowJet struct {
@@ -140,7 +146,7 @@ func (w *WindowFinder) Run(in *Input, out *Output) {
 	nphi, neta := g.PhiBins, g.EtaBins
 	seed := w.cfg.Seed
 	phiStep := g.PhiStep()
-	for _, c32 := range in.Touched {
+	for _, c32 := range in.Hot {
 		c := int(c32)
 		centre := cells[c]
 		if centre < seed || !(centre > 0) {
