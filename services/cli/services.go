@@ -239,7 +239,7 @@ func runBuild(ctx context.Context, e *env, args []string) error {
 	reg := newRegistry()
 	asm, err := assembler.New(assembler.Config{
 		Builder: cfg.BuilderConfig(sources), Instance: *instance, Instances: *instances,
-		LumiSliceOrbits: desc.Config.LumiSliceOrbits, Subjects: cfg.Subjects(),
+		LumiSliceOrbits: cfg.LumiSlice(desc), Subjects: cfg.Subjects(),
 	}, nc, reg)
 	if err != nil {
 		return err

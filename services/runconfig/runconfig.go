@@ -189,3 +189,12 @@ func (c Config) Readout(d *detector.Description) (*detector.Partition, []uint32,
 func (c Config) NewGenerator(d *detector.Description, part *detector.Partition) (detector.Generator, error) {
 	return detector.NewGenerator(d, part, c.Seed, c.Generator)
 }
+
+// LumiSlice returns the run's lumi-slice length in orbits: the override,
+// or the detector description's.
+func (c Config) LumiSlice(d *detector.Description) uint64 {
+	if c.LumiSliceOrbits > 0 {
+		return c.LumiSliceOrbits
+	}
+	return d.Config.LumiSliceOrbits
+}

@@ -126,10 +126,7 @@ func (c *Chain) wire() error {
 	if err != nil {
 		return err
 	}
-	lumi := c.desc.Config.LumiSliceOrbits
-	if rc.LumiSliceOrbits > 0 {
-		lumi = rc.LumiSliceOrbits
-	}
+	lumi := rc.LumiSlice(c.desc)
 	c.asm, err = assembler.New(assembler.Config{
 		Builder: rc.BuilderConfig(sources), LumiSliceOrbits: lumi, Subjects: rc.Subjects(),
 	}, ncB, c.reg)
