@@ -1,0 +1,105 @@
+package cli
+
+import (
+	"encoding/json"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+)
+
+// replay runs end to end on a small generated sample and writes every
+// output; a second run with the same seed writes the same report.json and
+// rates.csv.
+func TestReplayEndToEnd(t *testing.T) {
+	var outputs [2][2][]byte
+	tighter := writeMenu(t)
+	for i := range 2 {
+		dir := filepath.Join(t.TempDir(), "out")
+		code, stdout, stderr := runCLI(t, time.Minute, "replay", "--generate", "400", "--seed", "3", "--mu", "10",
+			"--out", dir, "--scan", "met-120:met=40:160:40", "--efficiency", "one-jet-180:truth-jet-pt=0:400:40",
+			"--compare", tighter, "--scale-lumi", "1e34:2e34")
+		if code != 0 {
+			t.Fatalf("exit %d: %s", code, stderr)
+		}
+		if stderr != "" {
+			t.Errorf("stderr not a terminal, yet: %q", stderr)
+		}
+		for _, want := range []string{"menu lantern-starter", "400 crossings", "not measurements", "met-120", "total", "scan of met-120", "compared with menu tighter"} {
+			if !strings.Contains(stdout, want) {
+				t.Errorf("stdout lacks %q:\n%s", want, stdout)
+			}
+		}
+		for _, name := range []string{"report.json", "rates.csv", "report.root", "overlap.png", "overlap.svg", "scan_0_met_120.png", "turnon_0_one_jet_180_truth_jet_pt.svg"} {
+			if info, err := os.Stat(filepath.Join(dir, name)); err != nil || info.Size() == 0 {
+				t.Errorf("%s: %v", name, err)
+			}
+		}
+		for k, name := range []string{"report.json", "rates.csv"} {
+			data, err := os.ReadFile(filepath.Join(dir, name))
+			if err != nil {
+				t.Fatal(err)
+			}
+			outputs[i][k] = data
+		}
+		var rep struct {
+			Schema        string `json:"schema"`
+			SchemaVersion int    `json:"schema_version"`
+			Processing    struct {
+				Crossings uint64 `json:"crossings"`
+			} `json:"processing"`
+		}
+		if err := json.Unmarshal(outputs[i][0], &rep); err != nil || rep.Schema != "bunchsieve-report" || rep.SchemaVersion != 1 || rep.Processing.Crossings != 400 {
+			t.Fatalf("report.json %+v: %v", rep, err)
+		}
+	}
+	if string(outputs[0][0]) != string(outputs[1][0]) || string(outputs[0][1]) != string(outputs[1][1]) {
+		t.Error("two runs with the same seed wrote different report.json or rates.csv")
+	}
+}
+
+func writeMenu(t *testing.T) string {
+	t.Helper()
+	path := filepath.Join(t.TempDir(), "tighter.yaml")
+	menu := "menu: tighter\nversion: 1\nfeatures:\n  jets: {finder: window, seed: 5 GeV, min_et: 20 GeV}\nrules:\n  met-120: {when: \"met > 150 GeV\"}\n  jets-high: {when: \"ht > 600 GeV\"}\n"
+	if err := os.WriteFile(path, []byte(menu), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	return path
+}
+
+// Bad flags give one line on standard error and exit status 2.
+func TestReplayBadFlags(t *testing.T) {
+	out := t.TempDir()
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"--generate", "10"}, "--out DIR is required"},
+		{[]string{"--out", out}, "give --stream FILE or --generate N"},
+		{[]string{"--out", out, "--generate", "10", "--stream", "x.bss"}, "not both"},
+		{[]string{"--out", out, "--stream", "x.bss", "--seed", "4"}, "--seed applies to --generate only"},
+		{[]string{"--out", out, "--generate", "0"}, "--generate 0"},
+		{[]string{"--out", out, "--generate", "10", "--generator", "toy"}, "--generator \"toy\""},
+		{[]string{"--out", out, "--generate", "10", "--scan", "met-120:met"}, "--scan: scan \"met-120:met\""},
+		{[]string{"--out", out, "--generate", "10", "--efficiency", "met-120"}, "--efficiency: efficiency \"met-120\""},
+		{[]string{"--out", out, "--generate", "10", "--scale-lumi", "5"}, "--scale-lumi"},
+		{[]string{"--out", out, "--generate", "10", "--cl", "1.5"}, "--cl 1.5"},
+		{[]string{"--out", out, "--generate", "10", "--prescale-set", "loud"}, "unknown prescale set \"loud\""},
+		{[]string{"--out", out, "--generate", "10", "--generator", "simple", "--force", "z-ee"}, "--force needs --generator physics"},
+		{[]string{"--out", out, "--generate", "10", "--bogus"}, "flag provided but not defined: -bogus"},
+	} {
+		code, _, stderr := runCLI(t, 30*time.Second, append([]string{"replay"}, c.args...)...)
+		lines := strings.Split(strings.TrimRight(stderr, "\n"), "\n")
+		if code != 2 || len(lines) != 1 || !strings.HasPrefix(stderr, "bunchsieve replay: ") || !strings.Contains(stderr, c.want) {
+			t.Errorf("replay %s: exit %d, stderr %q; want exit 2 and one line with %q", strings.Join(c.args, " "), code, stderr, c.want)
+		}
+	}
+	// A scan of a rule the menu does not have fails at the start, in one
+	// line, after the flags are read.
+	code, _, stderr := runCLI(t, 30*time.Second, "replay", "--out", out, "--generate", "10", "--scan", "nope:t1=1:2:1")
+	if code == 0 || strings.Count(strings.TrimRight(stderr, "\n"), "\n") != 0 || !strings.Contains(stderr, "unknown rule \"nope\"") {
+		t.Errorf("unknown rule: exit %d, %q", code, stderr)
+	}
+}
