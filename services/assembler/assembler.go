@@ -59,8 +59,13 @@ type Assembler struct {
 
 	mu        sync.Mutex // guards everything below, and the builder
 	b         *builder.Builder
-	out       *pb.EventBatch
-	outBytes  int
+	pool      *fragmentPool
+	in        wireBatch
+	out       []byte // the batch being filled: batchHeadRoom bytes, then events
+	events    int    // events in out
+	enc       builtEvent
+	holders   []*heldFragment // scratch of emit
+	head      []byte
 	seq       uint64
 	emitted   uint64
 	ended     map[uint32]bool
@@ -101,7 +106,7 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Assembler, erro
 		return nil, err
 	}
 	a := &Assembler{cfg: cfg, nc: nc, log: cfg.Logger, ended: make(map[uint32]bool), bytesIn: make(map[uint32]uint64), done: make(chan struct{}), ready: make(chan struct{}),
-		out: &pb.EventBatch{Builder: uint32(cfg.Instance)}}
+		pool: newFragmentPool(), out: make([]byte, batchHeadRoom, 64<<10)}
 	b, err := builder.New(cfg.Builder, a.emit)
 	if err != nil {
 		return nil, fmt.Errorf("assembler: %w", err)
@@ -118,7 +123,9 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Assembler, erro
 // Run subscribes to this instance's share of the fragments and builds
 // events until every expected source has sent its end-of-run marker (or ctx
 // ends, or Finish is called), then flushes the builder and publishes the
-// end-of-run batch. It returns the first publishing error, if any.
+// end-of-run batch, on the built-event subject and again on the end
+// subject that every selection worker receives. It returns the first
+// publishing error, if any.
 func (a *Assembler) Run(ctx context.Context) error {
 	sub, err := transport.Subscribe(a.nc, a.cfg.Subjects.FragmentsOf(a.cfg.Instance), "", a.onMsg)
 	if err != nil {
@@ -173,33 +180,41 @@ func (a *Assembler) Ready() <-chan struct{} { return a.ready }
 // onMsg is the subscription handler; NATS calls it from one goroutine.
 func (a *Assembler) onMsg(msg *nats.Msg) {
 	arrival := time.Now().UnixNano()
-	var batch pb.FragmentBatch
-	if err := proto.Unmarshal(msg.Data, &batch); err != nil {
-		a.mu.Lock()
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	batch := &a.in
+	if err := decodeBatch(msg.Data, batch, a.pool); err != nil {
+		// The fast decoder agrees with proto.Unmarshal on what decodes;
+		// ask proto for the reason only.
+		var pbb pb.FragmentBatch
+		if perr := proto.Unmarshal(msg.Data, &pbb); perr != nil {
+			err = perr
+		}
 		a.undecoded++
 		a.m.undecodable.Inc()
 		a.logDiscard(fmt.Errorf("undecodable batch on %s: %v", msg.Subject, err))
-		a.mu.Unlock()
 		return
 	}
-	a.mu.Lock()
-	defer a.mu.Unlock()
-	a.bytesIn[batch.SourceId] += uint64(len(msg.Data))
-	for _, f := range batch.Fragments {
-		if err := a.b.Add(f, arrival, batch.SentUnixNs); err != nil {
+	a.bytesIn[batch.sourceID] += uint64(len(msg.Data))
+	for _, h := range batch.frags {
+		f := &h.frag
+		if err := a.b.Add(f, arrival, batch.sentUnixNs); err != nil {
 			if errors.Is(err, builder.ErrWindowFull) {
 				// Block policy: make room by advancing, then retry once; a
 				// second refusal is counted by the builder.
 				a.b.Advance(arrival)
-				err = a.b.Add(f, arrival, batch.SentUnixNs)
+				err = a.b.Add(f, arrival, batch.sentUnixNs)
 			}
 			if err != nil {
+				// Not kept by the builder.
+				a.pool.put(h)
 				a.logDiscard(err)
 			}
 		}
 	}
-	if batch.EndOfRun && !a.ended[batch.SourceId] {
-		a.ended[batch.SourceId] = true
+	batch.frags = batch.frags[:0]
+	if batch.endOfRun && !a.ended[batch.sourceID] {
+		a.ended[batch.sourceID] = true
 		if len(a.ended) >= len(a.cfg.Builder.Sources) {
 			close(a.done)
 		}
@@ -222,54 +237,75 @@ func (a *Assembler) logDiscard(err error) {
 }
 
 // emit is the builder's callback: it appends the event to the outgoing
-// batch. Called with a.mu held.
+// batch, carrying each fragment as the bytes it arrived in, and returns the
+// fragments' records to the pool. Called with a.mu held.
 func (a *Assembler) emit(ev *builder.Event) {
 	now := time.Now()
-	be := &pb.BuiltEvent{
-		Run: ev.Run, Orbit: ev.Orbit, Bcid: ev.Bcid, TimestampNs: ev.TimestampNs,
-		LumiSlice:      uint32(ev.Orbit/a.cfg.LumiSliceOrbits) + 1,
-		Fragments:      append([]*pb.Fragment(nil), ev.Fragments...),
-		MissingSources: append([]uint32(nil), ev.Missing...),
-		Flags:          ev.Flags,
-		ReadoutUnixNs:  ev.EarliestSentNs,
-		BuiltUnixNs:    now.UnixNano(),
+	e := &a.enc
+	e.ev, e.lumi, e.builtNs = ev, uint32(ev.Orbit/a.cfg.LumiSliceOrbits)+1, now.UnixNano()
+	e.raws, a.holders = e.raws[:0], a.holders[:0]
+	for _, f := range ev.Fragments {
+		h := a.pool.held(f)
+		if h == nil {
+			// Not decoded here (cannot happen through onMsg): encode it.
+			raw, err := proto.Marshal(f)
+			if err != nil && a.pubErr == nil {
+				a.pubErr = fmt.Errorf("assembler: encode fragment: %w", err)
+			}
+			e.raws = append(e.raws, raw)
+			continue
+		}
+		e.raws = append(e.raws, h.raw)
+		a.holders = append(a.holders, h)
 	}
-	lat := time.Duration(now.UnixNano() - ev.FirstArrivalNs)
+	a.out = e.appendTo(a.out)
+	for _, h := range a.holders {
+		a.pool.put(h)
+	}
+	e.ev, e.raws = nil, e.raws[:0]
+	lat := time.Duration(e.builtNs - ev.FirstArrivalNs)
 	a.Latency.Record(lat)
 	a.m.latency.Observe(lat.Seconds())
 	if ev.EarliestSentNs > 0 {
-		a.m.sinceSent.Observe(time.Duration(now.UnixNano() - ev.EarliestSentNs).Seconds())
+		a.m.sinceSent.Observe(time.Duration(e.builtNs - ev.EarliestSentNs).Seconds())
 	}
-	a.out.Events = append(a.out.Events, be)
-	a.outBytes += proto.Size(be)
+	a.events++
 	a.emitted++
-	if len(a.out.Events) >= a.cfg.BatchEvents || a.outBytes >= maxBatchBytes {
+	if a.events >= a.cfg.BatchEvents || len(a.out)-batchHeadRoom >= maxBatchBytes {
 		if err := a.publishLocked(false); err != nil && a.pubErr == nil {
 			a.pubErr = err
 		}
 	}
 }
 
+// publishLocked publishes the events gathered so far, or with end the
+// end-of-run batch, which also goes to the end subject every selection
+// worker receives. Called with a.mu held.
 func (a *Assembler) publishLocked(end bool) error {
-	if len(a.out.Events) == 0 && !end {
+	if a.events == 0 && !end {
 		return nil
 	}
-	a.out.Sequence = a.seq
-	a.out.EndOfRun = end
+	a.head = batchHead(a.head[:0], uint32(a.cfg.Instance), a.seq)
+	start := batchHeadRoom - len(a.head)
+	copy(a.out[start:], a.head)
+	total := uint64(0)
 	if end {
-		a.out.EventsTotal = a.emitted
+		total = a.emitted
 	}
-	data, err := proto.Marshal(a.out)
-	if err != nil {
-		return fmt.Errorf("assembler: encode event batch: %w", err)
-	}
+	a.out = appendBatchTail(a.out, end, total)
+	data := a.out[start:]
 	if err := a.nc.Publish(a.cfg.Subjects.Built(), data); err != nil {
 		return fmt.Errorf("assembler: publish events: %w", err)
 	}
+	if end {
+		if err := a.nc.Publish(a.cfg.Subjects.BuiltEnd(), data); err != nil {
+			return fmt.Errorf("assembler: publish end of run: %w", err)
+		}
+	}
 	a.seq++
 	a.m.batches.Inc()
-	a.out.Events = a.out.Events[:0]
-	a.outBytes = 0
+	a.out = a.out[:batchHeadRoom]
+	a.events = 0
 	return nil
 }
 

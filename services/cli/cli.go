@@ -36,6 +36,7 @@ var commands = []command{
 	{"select", "run the selection against a NATS server", runSelect},
 	{"record", "write generated crossings to a stream file for later replay", runRecord},
 	{"replay", "replay a stream or generated crossings through a menu and write the rates and efficiency report", runReplay},
+	{"loadtest", "measure throughput, latency and loss of builder and selection through NATS against the raw-transport ceiling", runLoadtest},
 	{"menu", "work with menus: `menu check FILE` validates one and lists its rules", runMenu},
 	{"version", "print the version", func(_ context.Context, e *env, _ []string) error {
 		fmt.Fprintln(e.stdout, "bunchsieve", Version)

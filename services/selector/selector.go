@@ -31,6 +31,18 @@ type Config struct {
 	// Builders is how many builder instances feed the selection; the worker
 	// ends after the end-of-run batch of each. Zero means 1.
 	Builders int
+	// Workers is how many selection workers share the queue group; zero
+	// means 1. The queue group hands each builder's end-of-run batch to one
+	// worker only, so with more than one a worker reads the ends from the
+	// end subject every worker receives, tells the others its decided count
+	// on the progress subject, and ends when the counts of all workers add
+	// up to the events the builders emitted. Every worker then needs its
+	// own Worker number.
+	Workers int
+	// EndToEnd, when not nil, receives every end-to-end latency as well as
+	// Selector.EndToEnd does, so the workers of one process can fill one
+	// histogram. Nil means none.
+	EndToEnd *telemetry.Latency
 	// BatchDecisions is how many decisions one published batch carries at
 	// most; zero means 256.
 	BatchDecisions int
@@ -51,16 +63,30 @@ type Selector struct {
 	mu       sync.Mutex // guards the fields below
 	ev       trigger.Event
 	dec      trigger.Decision
+	we       wireEvent
+	fill     wireFill
+	slab     fragmentSlab
+	table    *towerTable
+	names    []string          // rule names of namesOf
+	namesOf  *trigger.Selector // the selector names belongs to
 	out      *pb.DecisionBatch
+	outBuf   []byte
 	seq      uint64
 	ends     int
 	expected uint64
 	seen     uint64
-	accepted uint64
-	events   uint64
-	pubErr   error
-	finished chan struct{}
-	ready    chan struct{}
+
+	// With more than one worker: each builder's events_total, by builder,
+	// and the other workers' decided counts, by worker.
+	builderEnds map[uint32]uint64
+	others      map[int]uint64
+	reported    uint64 // decided count last published on the progress subject
+	progBuf     []byte
+	accepted    uint64
+	events      uint64
+	pubErr      error
+	finished    chan struct{}
+	ready       chan struct{}
 
 	streams      *streamCounts // of the menu in force
 	decidedAny   bool
@@ -84,6 +110,12 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Selector, error
 	if cfg.Builders == 0 {
 		cfg.Builders = 1
 	}
+	if cfg.Workers == 0 {
+		cfg.Workers = 1
+	}
+	if cfg.Builders < 0 || cfg.Workers < 0 {
+		return nil, fmt.Errorf("selector: %d builders and %d workers, want >= 0 each", cfg.Builders, cfg.Workers)
+	}
 	if cfg.BatchDecisions == 0 {
 		cfg.BatchDecisions = 256
 	}
@@ -94,12 +126,13 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Selector, error
 		return nil, err
 	}
 	g := cfg.Geometry
-	sel, err := trigger.NewSelector(cfg.Menu, trigger.Grid{EtaBins: g.EtaBins, PhiBins: g.PhiBins, EtaMin: -g.EtaMax, EtaStep: g.EtaStep})
+	sel, err := trigger.NewSelector(cfg.Menu, GridOf(g))
 	if err != nil {
 		return nil, fmt.Errorf("selector: %w", err)
 	}
 	s := &Selector{cfg: cfg, nc: nc, log: cfg.Logger, finished: make(chan struct{}), ready: make(chan struct{}),
-		out: &pb.DecisionBatch{Worker: uint32(cfg.Worker)}}
+		out: &pb.DecisionBatch{Worker: uint32(cfg.Worker)}, table: newTowerTable(g),
+		builderEnds: map[uint32]uint64{}, others: map[int]uint64{}}
 	s.sel.Store(sel)
 	s.streams = newStreamCounts(cfg.Menu)
 	m, err := newMetrics(reg, s)
@@ -119,8 +152,7 @@ func (s *Selector) Trigger() *trigger.Selector { return s.sel.Load() }
 // effect at once. A second call before the switch replaces the first. The
 // new menu's counts start from zero. It is safe for concurrent use.
 func (s *Selector) LoadMenu(m *trigger.Menu, prescaleSet string) error {
-	g := s.cfg.Geometry
-	next, err := trigger.NewSelector(m, trigger.Grid{EtaBins: g.EtaBins, PhiBins: g.PhiBins, EtaMin: -g.EtaMax, EtaStep: g.EtaStep})
+	next, err := trigger.NewSelector(m, GridOf(s.cfg.Geometry))
 	if err != nil {
 		return fmt.Errorf("selector: %w", err)
 	}
@@ -159,12 +191,27 @@ func (s *Selector) LumiSlice() uint32 {
 }
 
 // Run subscribes to built events and decides on them until every builder
-// has sent its end-of-run batch and all its events are decided, or ctx
-// ends. It returns the first publishing error, if any.
+// has sent its end-of-run batch and all its events are decided (with
+// several workers: decided by the workers together, see Config.Workers),
+// or ctx ends. It returns the first publishing error, if any.
 func (s *Selector) Run(ctx context.Context) error {
 	sub, err := transport.Subscribe(s.nc, s.cfg.Subjects.Built(), s.cfg.Subjects.SelectQueue(), s.onMsg)
 	if err != nil {
 		return fmt.Errorf("selector: %w", err)
+	}
+	if s.cfg.Workers > 1 {
+		endSub, err := transport.Subscribe(s.nc, s.cfg.Subjects.BuiltEnd(), "", s.onEnd)
+		if err != nil {
+			_ = sub.Unsubscribe()
+			return fmt.Errorf("selector: %w", err)
+		}
+		defer endSub.Unsubscribe()
+		progSub, err := transport.Subscribe(s.nc, s.cfg.Subjects.SelectProgress(), "", s.onProgress)
+		if err != nil {
+			_ = sub.Unsubscribe()
+			return fmt.Errorf("selector: %w", err)
+		}
+		defer progSub.Unsubscribe()
 	}
 	if err := s.nc.Flush(); err != nil {
 		return fmt.Errorf("selector: subscribe: %w", err)
@@ -183,6 +230,9 @@ loop:
 			s.noteDrops(sub)
 			s.mu.Lock()
 			err := s.publishLocked()
+			if err == nil {
+				err = s.reportLocked(false)
+			}
 			s.mu.Unlock()
 			if err != nil {
 				return err
@@ -196,6 +246,10 @@ loop:
 	if err := s.publishLocked(); err != nil {
 		return err
 	}
+	// The others may still wait for this worker's last count.
+	if err := s.reportLocked(true); err != nil {
+		return err
+	}
 	if err := s.nc.Flush(); err != nil {
 		return fmt.Errorf("selector: flush: %w", err)
 	}
@@ -207,73 +261,195 @@ loop:
 func (s *Selector) Ready() <-chan struct{} { return s.ready }
 
 func (s *Selector) onMsg(msg *nats.Msg) {
-	var batch pb.EventBatch
-	if err := proto.Unmarshal(msg.Data, &batch); err != nil {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	h, err := walkBatch(msg.Data, s.decideWire)
+	if err != nil {
+		// Events before the damage have been decided; the rest of the
+		// batch is lost and counted with it.
 		s.undecoded.Add(1)
 		s.m.undecodable.Inc()
 		s.log.Warn("undecodable event batch", "subject", msg.Subject, "error", err)
-		return
-	}
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	for _, be := range batch.Events {
-		s.decide(be)
-	}
-	if batch.EndOfRun {
+	} else if h.endOfRun && s.cfg.Workers <= 1 {
 		s.ends++
-		s.expected += batch.EventsTotal
+		s.expected += h.total
 	}
 	if err := s.publishLocked(); err != nil && s.pubErr == nil {
 		s.pubErr = err
 	}
-	if s.ends >= s.cfg.Builders && s.seen >= s.expected {
-		select {
-		case <-s.finished:
-		default:
-			close(s.finished)
-		}
+	s.checkFinishedLocked()
+}
+
+// onEnd takes a builder's end-of-run batch from the end subject (more than
+// one worker).
+func (s *Selector) onEnd(msg *nats.Msg) {
+	h, err := walkBatch(msg.Data, nil)
+	if err != nil || !h.endOfRun {
+		s.log.Warn("undecodable end-of-run batch", "subject", msg.Subject, "error", err)
+		return
 	}
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	s.builderEnds[h.builder] = h.total
+	// Tell the others at once: this worker may be done already.
+	if err := s.reportLocked(true); err != nil && s.pubErr == nil {
+		s.pubErr = err
+	}
+	s.checkFinishedLocked()
+}
+
+// onProgress takes another worker's decided count (more than one worker).
+func (s *Selector) onProgress(msg *nats.Msg) {
+	w, n, err := parseProgress(msg.Data)
+	if err != nil {
+		s.log.Warn("undecodable progress message", "subject", msg.Subject, "error", err)
+		return
+	}
+	if w == s.cfg.Worker {
+		return
+	}
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	s.others[w] = max(s.others[w], n)
+	s.checkFinishedLocked()
+}
+
+// reportLocked publishes this worker's decided count on the progress
+// subject when it changed since the last report, or always with force.
+// It does nothing for a single worker.
+func (s *Selector) reportLocked(force bool) error {
+	if s.cfg.Workers <= 1 || (!force && s.seen == s.reported) {
+		return nil
+	}
+	s.progBuf = appendProgress(s.progBuf[:0], s.cfg.Worker, s.seen)
+	if err := s.nc.Publish(s.cfg.Subjects.SelectProgress(), s.progBuf); err != nil {
+		return fmt.Errorf("selector: publish progress: %w", err)
+	}
+	s.reported = s.seen
+	return nil
+}
+
+// checkFinishedLocked ends the run once every builder has ended and every
+// event it emitted is decided: by this worker alone, or with more than one
+// worker by all of them together.
+func (s *Selector) checkFinishedLocked() {
+	done := s.ends >= s.cfg.Builders && s.seen >= s.expected
+	if s.cfg.Workers > 1 {
+		var want, have uint64
+		for _, n := range s.builderEnds {
+			want += n
+		}
+		have = s.seen
+		for _, n := range s.others {
+			have += n
+		}
+		done = len(s.builderEnds) >= s.cfg.Builders && have >= want
+	}
+	if !done {
+		return
+	}
+	select {
+	case <-s.finished:
+	default:
+		close(s.finished)
+	}
+}
+
+// decideWire decides one encoded built event. Called with s.mu held.
+func (s *Selector) decideWire(raw []byte) error {
+	start := time.Now()
+	we := &s.we
+	if err := we.decode(raw); err != nil {
+		return err
+	}
+	sel := s.selectorFor(we.lumi)
+	ok, err := s.table.fillWire(we.frags, we.lumi, &s.ev, &s.fill)
+	if err != nil {
+		return err
+	}
+	if !ok {
+		// Not plain calorimeter fragments: FillEvent, the reference, on
+		// the decoded fragments.
+		frags, err := s.slab.decode(we.frags)
+		if err != nil {
+			return err
+		}
+		FillEvent(s.cfg.Geometry, frags, we.lumi, &s.ev)
+	}
+	s.finish(sel, eventMeta{run: we.run, orbit: we.orbit, bcid: we.bcid, lumi: we.lumi, flags: we.flags, readout: we.readout}, start)
+	return nil
+}
+
+// eventMeta is what a decision copies from its event.
+type eventMeta struct {
+	run        uint32
+	orbit      uint64
+	bcid, lumi uint32
+	flags      uint32
+	readout    int64
 }
 
 // decide runs the menu on one built event. Called with s.mu held.
 func (s *Selector) decide(be *pb.BuiltEvent) {
 	start := time.Now()
-	if s.pending != nil && be.LumiSlice > s.pendingAfter {
+	sel := s.selectorFor(be.LumiSlice)
+	s.fillEvent(be)
+	s.finish(sel, eventMeta{run: be.Run, orbit: be.Orbit, bcid: be.Bcid, lumi: be.LumiSlice, flags: be.Flags, readout: be.ReadoutUnixNs}, start)
+}
+
+// selectorFor returns the trigger selector for an event of lumi slice l,
+// switching to a pending menu at the slice boundary. Called with s.mu held.
+func (s *Selector) selectorFor(l uint32) *trigger.Selector {
+	if s.pending != nil && l > s.pendingAfter {
 		s.sel.Store(s.pending)
 		s.streams = newStreamCounts(s.pending.Menu())
 		s.pending = nil
 	}
 	s.decidedAny = true
-	s.maxSlice = max(s.maxSlice, be.LumiSlice)
-	sel := s.sel.Load()
-	s.fill(be)
+	s.maxSlice = max(s.maxSlice, l)
+	return s.sel.Load()
+}
+
+// finish decides on the event in s.ev and records the decision. Called
+// with s.mu held.
+func (s *Selector) finish(sel *trigger.Selector, e eventMeta, start time.Time) {
 	sel.Decide(&s.ev, &s.dec)
 	took := time.Since(start)
 	s.m.latency.Observe(took.Seconds())
 	s.seen++
 	s.events++
-	d := &pb.Decision{
-		Run: be.Run, Orbit: be.Orbit, Bcid: be.Bcid, LumiSlice: be.LumiSlice,
-		Accept: s.dec.Accept, MenuHash: s.dec.MenuHash, PrescaleSet: s.dec.PrescaleSet,
-		EventFlags: be.Flags, Streams: append([]string(nil), s.dec.Streams...),
-	}
-	for i, n := range sel.RuleNames() {
+	d := s.nextDecision()
+	d.Run, d.Orbit, d.Bcid, d.LumiSlice = e.run, e.orbit, e.bcid, e.lumi
+	d.Accept, d.MenuHash, d.PrescaleSet, d.EventFlags = s.dec.Accept, s.dec.MenuHash, s.dec.PrescaleSet, e.flags
+	d.Streams = append(d.Streams[:0], s.dec.Streams...)
+	rules := d.Rules[:0]
+	for i, n := range s.ruleNames(sel) {
 		if s.dec.Passed[i] {
-			d.Rules = append(d.Rules, &pb.RuleResult{Rule: n, Index: uint32(i), PassedBeforePrescale: true, PassedAfterPrescale: s.dec.Kept[i]})
+			var r *pb.RuleResult
+			if len(rules) < cap(rules) && rules[:len(rules)+1][len(rules)] != nil {
+				r = rules[:len(rules)+1][len(rules)]
+			} else {
+				r = &pb.RuleResult{}
+			}
+			r.Rule, r.Index, r.PassedBeforePrescale, r.PassedAfterPrescale = n, uint32(i), true, s.dec.Kept[i]
+			rules = append(rules, r)
 		}
 	}
+	d.Rules = rules
 	s.streams.add(s.dec.Passed, s.dec.Kept)
 	if s.dec.Accept {
 		s.accepted++
 		s.m.accepted.Inc()
 	}
 	s.m.decisions.Inc()
-	if be.ReadoutUnixNs > 0 {
-		e2e := time.Duration(time.Now().UnixNano() - be.ReadoutUnixNs)
+	if e.readout > 0 {
+		e2e := time.Duration(time.Now().UnixNano() - e.readout)
 		s.EndToEnd.Record(e2e)
+		if s.cfg.EndToEnd != nil {
+			s.cfg.EndToEnd.Record(e2e)
+		}
 		s.m.endToEnd.Observe(e2e.Seconds())
 	}
-	s.out.Decisions = append(s.out.Decisions, d)
 	if len(s.out.Decisions) >= s.cfg.BatchDecisions {
 		if err := s.publishLocked(); err != nil && s.pubErr == nil {
 			s.pubErr = err
@@ -281,18 +457,49 @@ func (s *Selector) decide(be *pb.BuiltEvent) {
 	}
 }
 
-// fill decodes the calorimeter fragments of be into s.ev.
-func (s *Selector) fill(be *pb.BuiltEvent) {
+// nextDecision appends a decision to the outgoing batch, reusing one the
+// batch held before it was last published. Called with s.mu held.
+func (s *Selector) nextDecision() *pb.Decision {
+	ds := s.out.Decisions
+	if len(ds) < cap(ds) {
+		if d := ds[:len(ds)+1][len(ds)]; d != nil {
+			s.out.Decisions = ds[:len(ds)+1]
+			return d
+		}
+	}
+	d := &pb.Decision{}
+	s.out.Decisions = append(ds, d)
+	return d
+}
+
+// ruleNames returns the rule names of sel, cached: RuleNames allocates.
+func (s *Selector) ruleNames(sel *trigger.Selector) []string {
+	if s.namesOf != sel {
+		s.names, s.namesOf = sel.RuleNames(), sel
+	}
+	return s.names
+}
+
+// fillEvent decodes the calorimeter fragments of be into s.ev.
+func (s *Selector) fillEvent(be *pb.BuiltEvent) {
 	FillEvent(s.cfg.Geometry, be.Fragments, be.LumiSlice, &s.ev)
 }
 
-// FillEvent decodes the calorimeter payloads of fragments into ev's towers
-// (ET from least counts, eta and phi at the tower centres of g), reusing
-// ev's storage. Towers outside the grid or with zero counts are skipped.
+// FillEvent decodes the payloads of fragments into ev, reusing its
+// storage: calorimeter towers (ET from least counts, eta and phi at the
+// tower centres of g; towers outside the grid or with zero counts are
+// skipped) and muon-station hits (mm).
 func FillEvent(g *detector.Geometry, fragments []*pb.Fragment, lumiSlice uint32, ev *trigger.Event) {
 	ev.Towers = ev.Towers[:0]
+	ev.MuonHits = ev.MuonHits[:0]
 	ev.LumiSlice = lumiSlice
 	for _, f := range fragments {
+		if m := f.GetMuon(); m != nil {
+			for _, h := range m.Hits {
+				ev.MuonHits = append(ev.MuonHits, trigger.MuonHit{Station: int(h.Station), X: float64(h.XMm), Y: float64(h.YMm), Z: float64(h.ZMm)})
+			}
+			continue
+		}
 		calo := f.GetCalo()
 		if calo == nil {
 			continue
@@ -314,19 +521,26 @@ func FillEvent(g *detector.Geometry, fragments []*pb.Fragment, lumiSlice uint32,
 	}
 }
 
+// GridOf returns the selection's view of geometry g.
+func GridOf(g *detector.Geometry) trigger.Grid {
+	return trigger.Grid{EtaBins: g.EtaBins, PhiBins: g.PhiBins, EtaMin: -g.EtaMax, EtaStep: g.EtaStep, FieldT: g.FieldT}
+}
+
 func (s *Selector) publishLocked() error {
 	if len(s.out.Decisions) == 0 {
 		return nil
 	}
 	s.out.Sequence = s.seq
-	data, err := proto.Marshal(s.out)
+	var err error
+	s.outBuf, err = proto.MarshalOptions{}.MarshalAppend(s.outBuf[:0], s.out)
 	if err != nil {
 		return fmt.Errorf("selector: encode decisions: %w", err)
 	}
-	if err := s.nc.Publish(s.cfg.Subjects.Decisions(), data); err != nil {
+	if err := s.nc.Publish(s.cfg.Subjects.Decisions(), s.outBuf); err != nil {
 		return fmt.Errorf("selector: publish decisions: %w", err)
 	}
 	s.seq++
+	// The decisions stay in the slice's storage, to be reused.
 	s.out.Decisions = s.out.Decisions[:0]
 	return nil
 }

@@ -20,6 +20,8 @@ var prefixRe = regexp.MustCompile(`^[A-Za-z0-9_-]+(\.[A-Za-z0-9_-]+)*$`)
 //
 //	<prefix>.frag.<partition>.<source>   fragment batches, one subject per source and builder share
 //	<prefix>.built                       built-event batches (selection workers form a queue group)
+//	<prefix>.built.end                   each builder's end-of-run batch again, for every worker
+//	<prefix>.select.progress             selection workers' decided counts, to end a run together
 //	<prefix>.decisions                   decision batches
 type Subjects struct {
 	Prefix string
@@ -54,6 +56,16 @@ func (s Subjects) FragmentsOf(partition int) string {
 
 // Built returns the subject of built-event batches.
 func (s Subjects) Built() string { return s.prefix() + ".built" }
+
+// BuiltEnd returns the subject on which every builder publishes its
+// end-of-run batch a second time. It is not a queue subject: every
+// selection worker receives every builder's end, which the queue group
+// hands to one worker only.
+func (s Subjects) BuiltEnd() string { return s.prefix() + ".built.end" }
+
+// SelectProgress returns the subject on which selection workers sharing
+// the queue group tell each other how many events they decided.
+func (s Subjects) SelectProgress() string { return s.prefix() + ".select.progress" }
 
 // Decisions returns the subject of decision batches.
 func (s Subjects) Decisions() string { return s.prefix() + ".decisions" }

@@ -1,0 +1,302 @@
+package assembler
+
+import (
+	"errors"
+
+	"google.golang.org/protobuf/encoding/protowire"
+	"google.golang.org/protobuf/proto"
+
+	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+)
+
+// Decoding fragment batches straight from the wire. proto.Unmarshal
+// allocates every fragment, its payload and both tower slices for every
+// batch; here fragments are decoded into pooled records that keep their
+// slices from batch to batch, and each record remembers the exact bytes it
+// was decoded from, so that a built event can be encoded by concatenating
+// them instead of encoding every fragment again.
+//
+// The fast decoder understands the layout the readout writes. Anything
+// else (a muon payload, unknown fields, a payload split into several
+// occurrences, an unexpected wire type) is handed to proto.Unmarshal for
+// that fragment, so the result is always what proto.Unmarshal gives.
+
+// Field numbers of FragmentBatch, Fragment and CaloPayload
+// (proto/bunchsieve/v1/fragment.proto).
+const (
+	batchSourceID  = 1
+	batchRun       = 2
+	batchSequence  = 3
+	batchSent      = 4
+	batchFragments = 5
+	batchEnd       = 6
+
+	fragSourceID  = 1
+	fragRun       = 2
+	fragOrbit     = 3
+	fragBcid      = 4
+	fragTimestamp = 5
+	fragStatus    = 6
+	fragCalo      = 7
+	fragChecksum  = 9
+
+	caloTowers = 1
+	caloCounts = 2
+)
+
+// errWire reports bytes that are not a protobuf encoding.
+var errWire = errors.New("assembler: malformed protobuf")
+
+// heldFragment is a pooled fragment with the bytes it was decoded from.
+// The builder holds &frag until the fragment's event is emitted.
+type heldFragment struct {
+	frag pb.Fragment
+	calo pb.CaloPayload
+	one  pb.Fragment_Calo
+	raw  []byte // the fragment's encoding; points into the message
+	// foreign is set when proto.Unmarshal filled frag: its payload is then
+	// proto's own, and the record is not reused.
+	foreign bool
+}
+
+// wireBatch is one decoded FragmentBatch.
+type wireBatch struct {
+	sourceID   uint32
+	sentUnixNs int64
+	endOfRun   bool
+	frags      []*heldFragment
+}
+
+// fragmentPool hands out heldFragments and finds them again from the
+// *pb.Fragment the builder returns in an event. It is owned by one
+// goroutine at a time (the assembler's mutex).
+type fragmentPool struct {
+	free  []*heldFragment
+	owner map[*pb.Fragment]*heldFragment
+}
+
+func newFragmentPool() *fragmentPool {
+	return &fragmentPool{owner: make(map[*pb.Fragment]*heldFragment)}
+}
+
+func (p *fragmentPool) get() *heldFragment {
+	if n := len(p.free); n > 0 {
+		h := p.free[n-1]
+		p.free = p.free[:n-1]
+		return h
+	}
+	h := &heldFragment{}
+	h.one.Calo = &h.calo
+	p.owner[&h.frag] = h
+	return h
+}
+
+// put returns h to the pool. Records proto.Unmarshal filled are dropped:
+// their payload is not the record's own.
+func (p *fragmentPool) put(h *heldFragment) {
+	h.raw = nil
+	if h.foreign {
+		delete(p.owner, &h.frag)
+		return
+	}
+	p.free = append(p.free, h)
+}
+
+// held returns the record of a fragment handed out by get, or nil.
+func (p *fragmentPool) held(f *pb.Fragment) *heldFragment { return p.owner[f] }
+
+// decodeBatch decodes data into wb, taking fragment records from p. On an
+// error every record taken is returned to p and wb holds no fragments. The
+// result equals proto.Unmarshal's: fields it does not know are skipped, as
+// proto keeps them aside; scalar fields repeated on the wire take their
+// last value.
+func decodeBatch(data []byte, wb *wireBatch, p *fragmentPool) error {
+	*wb = wireBatch{frags: wb.frags[:0]}
+	for len(data) > 0 {
+		num, typ, n := protowire.ConsumeTag(data)
+		if n < 0 {
+			return wb.fail(p)
+		}
+		data = data[n:]
+		switch {
+		case typ == protowire.VarintType && num != batchFragments:
+			v, n := protowire.ConsumeVarint(data)
+			if n < 0 {
+				return wb.fail(p)
+			}
+			data = data[n:]
+			switch num {
+			case batchSourceID:
+				wb.sourceID = uint32(v)
+			case batchSent:
+				wb.sentUnixNs = int64(v)
+			case batchEnd:
+				wb.endOfRun = protowire.DecodeBool(v)
+			}
+		case typ == protowire.BytesType && num == batchFragments:
+			raw, n := protowire.ConsumeBytes(data)
+			if n < 0 {
+				return wb.fail(p)
+			}
+			data = data[n:]
+			h := p.get()
+			wb.frags = append(wb.frags, h)
+			if err := decodeFragment(raw, h); err != nil {
+				return wb.fail(p)
+			}
+		default:
+			n := protowire.ConsumeFieldValue(num, typ, data)
+			if n < 0 {
+				return wb.fail(p)
+			}
+			data = data[n:]
+		}
+	}
+	return nil
+}
+
+func (wb *wireBatch) fail(p *fragmentPool) error {
+	for _, h := range wb.frags {
+		p.put(h)
+	}
+	wb.frags = wb.frags[:0]
+	return errWire
+}
+
+// decodeFragment fills h from raw, the encoding of one Fragment.
+func decodeFragment(raw []byte, h *heldFragment) error {
+	h.raw = raw
+	if h.fast(raw) {
+		return nil
+	}
+	// Not the readout's usual layout: let proto decide what it means.
+	h.foreign = true
+	h.raw = raw
+	if err := proto.Unmarshal(raw, &h.frag); err != nil {
+		return errWire
+	}
+	return nil
+}
+
+// fast decodes raw if it has only the fields the fast path knows, each
+// with its proto wire type, and at most one calorimeter payload. It
+// reports false otherwise, leaving h in an unspecified state.
+func (h *heldFragment) fast(raw []byte) bool {
+	f := &h.frag
+	f.SourceId, f.Run, f.Orbit, f.Bcid, f.TimestampNs, f.Status, f.Checksum = 0, 0, 0, 0, 0, 0, 0
+	f.Payload = nil
+	h.calo.Towers, h.calo.EtCounts = h.calo.Towers[:0], h.calo.EtCounts[:0]
+	calo := false
+	for len(raw) > 0 {
+		// Every field of a Fragment has a one-byte tag.
+		tag := raw[0]
+		if tag >= 0x80 {
+			return false
+		}
+		raw = raw[1:]
+		num, typ := protowire.Number(tag>>3), protowire.Type(tag&7)
+		if num == fragCalo {
+			if typ != protowire.BytesType || calo {
+				return false
+			}
+			payload, n := protowire.ConsumeBytes(raw)
+			if n < 0 || !h.decodeCalo(payload) {
+				return false
+			}
+			raw = raw[n:]
+			calo = true
+			f.Payload = &h.one
+			continue
+		}
+		if typ != protowire.VarintType {
+			return false
+		}
+		v, n := uvarint(raw)
+		if n < 0 {
+			return false
+		}
+		raw = raw[n:]
+		switch num {
+		case fragSourceID:
+			f.SourceId = uint32(v)
+		case fragRun:
+			f.Run = uint32(v)
+		case fragOrbit:
+			f.Orbit = v
+		case fragBcid:
+			f.Bcid = uint32(v)
+		case fragTimestamp:
+			f.TimestampNs = int64(v)
+		case fragStatus:
+			f.Status = uint32(v)
+		case fragChecksum:
+			f.Checksum = uint32(v)
+		default:
+			return false
+		}
+	}
+	return true
+}
+
+// uvarint decodes a varint, with the one- and two-byte forms inline.
+func uvarint(b []byte) (uint64, int) {
+	if len(b) > 0 && b[0] < 0x80 {
+		return uint64(b[0]), 1
+	}
+	if len(b) > 1 && b[1] < 0x80 {
+		return uint64(b[0]&0x7f) | uint64(b[1])<<7, 2
+	}
+	return protowire.ConsumeVarint(b)
+}
+
+// decodeCalo appends the towers and counts of a CaloPayload encoding,
+// packed or not, as proto does.
+func (h *heldFragment) decodeCalo(b []byte) bool {
+	for len(b) > 0 {
+		num, typ, n := protowire.ConsumeTag(b)
+		if n < 0 || (num != caloTowers && num != caloCounts) {
+			return false
+		}
+		b = b[n:]
+		dst := &h.calo.Towers
+		if num == caloCounts {
+			dst = &h.calo.EtCounts
+		}
+		switch typ {
+		case protowire.VarintType:
+			v, n := protowire.ConsumeVarint(b)
+			if n < 0 {
+				return false
+			}
+			b = b[n:]
+			*dst = append(*dst, uint32(v))
+		case protowire.BytesType:
+			packed, n := protowire.ConsumeBytes(b)
+			if n < 0 {
+				return false
+			}
+			b = b[n:]
+			var ok bool
+			if *dst, ok = appendPacked(*dst, packed); !ok {
+				return false
+			}
+		default:
+			return false
+		}
+	}
+	return true
+}
+
+// appendPacked appends the packed varints of b to dst as uint32 (proto
+// truncates wider values the same way).
+func appendPacked(dst []uint32, b []byte) ([]uint32, bool) {
+	for len(b) > 0 {
+		v, n := uvarint(b)
+		if n < 0 {
+			return dst, false
+		}
+		dst = append(dst, uint32(v))
+		b = b[n:]
+	}
+	return dst, true
+}

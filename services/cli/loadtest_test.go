@@ -1,0 +1,83 @@
+package cli
+
+import (
+	"encoding/json"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/bunchsieve/bunchsieve/loadtest"
+)
+
+// `bunchsieve loadtest` runs a short sweep end to end and writes the JSON
+// report and the plot it was asked for.
+func TestLoadtestCommand(t *testing.T) {
+	dir := t.TempDir()
+	jsonPath, pngPath := filepath.Join(dir, "lt.json"), filepath.Join(dir, "lt.png")
+	code, stdout, stderr := runCLI(t, time.Minute, "loadtest", "--dataset", "1200", "--rates", "1k,2k", "--duration", "500ms",
+		"--baseline-runs", "1", "--baseline-length", "100ms", "--json", jsonPath, "--png", pngPath)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	if stderr != "" {
+		t.Errorf("progress went to a stderr that is not a terminal: %q", stderr)
+	}
+	for _, want := range []string{"offered/s", "raw transport, 1 hop", "saturation"} {
+		if !strings.Contains(stdout, want) {
+			t.Errorf("table lacks %q:\n%s", want, stdout)
+		}
+	}
+	data, err := os.ReadFile(jsonPath)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rep loadtest.Report
+	if err := json.Unmarshal(data, &rep); err != nil {
+		t.Fatal(err)
+	}
+	if rep.Schema != loadtest.SchemaVersion || len(rep.Steps) != 2 || rep.Baseline == nil || !strings.HasPrefix(rep.Command, "bunchsieve loadtest --dataset 1200") {
+		t.Fatalf("report: %+v", rep)
+	}
+	for _, st := range rep.Steps {
+		if !st.Account.Lossless() {
+			t.Fatalf("step at %v/s lost events: %+v", st.OfferedHz, st.Account)
+		}
+	}
+	if fi, err := os.Stat(pngPath); err != nil || fi.Size() == 0 {
+		t.Fatalf("plot: %v", err)
+	}
+}
+
+// Contradictory or malformed flags are usage errors (exit status 2).
+func TestLoadtestUsage(t *testing.T) {
+	for _, args := range [][]string{
+		{"--rate", "10k", "--rates", "1k,2k"},
+		{"--rates", "5k:1k:1k"},
+		{"--rate", "fast"},
+		{"--soak", "1m"},
+		{"--soak", "1m", "--rate", "0"},
+		{"--nats", "nats://127.0.0.1:4222", "--cluster"},
+		{"--stream", "x.bss", "--seed", "3"},
+		{"--generator", "magic"},
+		{"--dataset", "0"},
+	} {
+		code, _, stderr := runCLI(t, 10*time.Second, append([]string{"loadtest"}, args...)...)
+		if code != 2 || !strings.Contains(stderr, "bunchsieve loadtest:") {
+			t.Errorf("%v: exit %d, stderr %q; want a usage error", args, code, stderr)
+		}
+	}
+}
+
+// Rates parse with k and M suffixes, as lists and as sweeps.
+func TestParseRates(t *testing.T) {
+	got, err := parseRates("20k:60k:20k")
+	if err != nil || len(got) != 3 || got[0] != 20000 || got[2] != 60000 {
+		t.Fatalf("sweep: %v %v", got, err)
+	}
+	got, err = parseRates("0, 1.5k,2M")
+	if err != nil || len(got) != 3 || got[0] != 0 || got[1] != 1500 || got[2] != 2e6 {
+		t.Fatalf("list: %v %v", got, err)
+	}
+}

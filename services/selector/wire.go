@@ -1,0 +1,665 @@
+package selector
+
+import (
+	"errors"
+
+	"google.golang.org/protobuf/encoding/protowire"
+	"google.golang.org/protobuf/proto"
+
+	"github.com/bunchsieve/bunchsieve/detector"
+	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+	"github.com/bunchsieve/bunchsieve/trigger"
+)
+
+// Decoding event batches straight from the wire. proto.Unmarshal would
+// allocate every event, every fragment and both tower slices of every
+// payload, only for the towers to be copied into a trigger.Event; here the
+// calorimeter payloads are read in place. Events whose fragments are not
+// plain calorimeter fragments (a muon payload) go through proto.Unmarshal
+// and FillEvent, the reference, so the towers and hits the menu sees are
+// always FillEvent's.
+
+// Field numbers (proto/bunchsieve/v1/event.proto and fragment.proto).
+const (
+	ebBuilder = 1
+	ebEvents  = 3
+	ebEnd     = 4
+	ebTotal   = 5
+
+	evRun       = 1
+	evOrbit     = 2
+	evBcid      = 3
+	evLumi      = 5
+	evFragments = 6
+	evFlags     = 8
+	evReadout   = 9
+
+	fragCalo = 7
+	fragMuon = 8
+
+	caloTowers = 1
+	caloCounts = 2
+
+	progressWorker  = 1
+	progressDecided = 2
+)
+
+// errWire reports bytes that are not a protobuf encoding.
+var errWire = errors.New("selector: malformed protobuf")
+
+// batchHeader is what an EventBatch says besides its events.
+type batchHeader struct {
+	builder  uint32
+	endOfRun bool
+	total    uint64
+}
+
+// walkBatch calls fn with the encoding of each event of an EventBatch, in
+// order, and returns the batch's other fields. It stops at the first error
+// of fn or of the encoding. Unknown fields and fields of an unexpected wire
+// type are skipped, as proto.Unmarshal sets them aside.
+func walkBatch(data []byte, fn func(event []byte) error) (batchHeader, error) {
+	var h batchHeader
+	for len(data) > 0 {
+		num, typ, n := protowire.ConsumeTag(data)
+		if n < 0 {
+			return h, errWire
+		}
+		data = data[n:]
+		if num == ebEvents && typ == protowire.BytesType {
+			ev, n := protowire.ConsumeBytes(data)
+			if n < 0 {
+				return h, errWire
+			}
+			data = data[n:]
+			if fn != nil {
+				if err := fn(ev); err != nil {
+					return h, err
+				}
+			}
+			continue
+		}
+		if typ == protowire.VarintType {
+			v, n := protowire.ConsumeVarint(data)
+			if n < 0 {
+				return h, errWire
+			}
+			data = data[n:]
+			switch num {
+			case ebBuilder:
+				h.builder = uint32(v)
+			case ebEnd:
+				h.endOfRun = protowire.DecodeBool(v)
+			case ebTotal:
+				h.total = v
+			}
+			continue
+		}
+		n = protowire.ConsumeFieldValue(num, typ, data)
+		if n < 0 {
+			return h, errWire
+		}
+		data = data[n:]
+	}
+	return h, nil
+}
+
+// wireEvent is a BuiltEvent whose fragments are still encoded.
+type wireEvent struct {
+	run     uint32
+	orbit   uint64
+	bcid    uint32
+	lumi    uint32
+	flags   uint32
+	readout int64
+	frags   [][]byte // each fragment's encoding, pointing into the message
+}
+
+// decode reads the fields of one BuiltEvent encoding the selection uses.
+func (we *wireEvent) decode(b []byte) error {
+	*we = wireEvent{frags: we.frags[:0]}
+	for len(b) > 0 {
+		num, typ, n := protowire.ConsumeTag(b)
+		if n < 0 {
+			return errWire
+		}
+		b = b[n:]
+		if num == evFragments && typ == protowire.BytesType {
+			f, n := protowire.ConsumeBytes(b)
+			if n < 0 {
+				return errWire
+			}
+			b = b[n:]
+			we.frags = append(we.frags, f)
+			continue
+		}
+		if typ == protowire.VarintType {
+			v, n := protowire.ConsumeVarint(b)
+			if n < 0 {
+				return errWire
+			}
+			b = b[n:]
+			switch num {
+			case evRun:
+				we.run = uint32(v)
+			case evOrbit:
+				we.orbit = v
+			case evBcid:
+				we.bcid = uint32(v)
+			case evLumi:
+				we.lumi = uint32(v)
+			case evFlags:
+				we.flags = uint32(v)
+			case evReadout:
+				we.readout = int64(v)
+			}
+			continue
+		}
+		n = protowire.ConsumeFieldValue(num, typ, b)
+		if n < 0 {
+			return errWire
+		}
+		b = b[n:]
+	}
+	return nil
+}
+
+// towerTable holds each tower's layer and bins, packed in a uint32 so the
+// table of a whole calorimeter stays in the processor's cache, and the bin
+// centres, all made once per geometry with the Geometry's own methods, so
+// that a lookup gives bit for bit what FillEvent computes per tower. It is
+// immutable and safe for concurrent use.
+type towerTable struct {
+	cells      []uint32 // by global tower index: layer<<24 | ieta<<12 | iphi
+	eta, phi   []float64
+	lsb        float64
+	g          *detector.Geometry
+	computeAll bool // bins too many to pack: compute per tower
+}
+
+func newTowerTable(g *detector.Geometry) *towerTable {
+	t := &towerTable{lsb: g.LeastCountGeV, g: g}
+	if g.EtaBins >= 1<<12 || g.PhiBins >= 1<<12 || detector.Layers >= 1<<8 {
+		t.computeAll = true
+		return t
+	}
+	t.cells = make([]uint32, g.Towers())
+	for i := range t.cells {
+		layer, ieta, iphi, _ := g.TowerCoords(i)
+		t.cells[i] = uint32(layer)<<24 | uint32(ieta)<<12 | uint32(iphi)
+	}
+	t.eta = make([]float64, g.EtaBins)
+	for i := range t.eta {
+		t.eta[i] = g.EtaCentre(i)
+	}
+	t.phi = make([]float64, g.PhiBins)
+	for i := range t.phi {
+		t.phi[i] = g.PhiCentre(i)
+	}
+	return t
+}
+
+// tower returns the trigger tower of global index idx with counts c, or
+// false when idx is off the grid.
+func (t *towerTable) tower(idx, c uint32) (trigger.Tower, bool) {
+	if t.computeAll {
+		layer, ieta, iphi, ok := t.g.TowerCoords(int(idx))
+		if !ok {
+			return trigger.Tower{}, false
+		}
+		return trigger.Tower{Layer: uint8(layer), IEta: ieta, IPhi: iphi, Eta: t.g.EtaCentre(ieta), Phi: t.g.PhiCentre(iphi), ET: t.g.ET(c)}, true
+	}
+	if int(idx) >= len(t.cells) {
+		return trigger.Tower{}, false
+	}
+	cell := t.cells[idx]
+	ieta, iphi := int(cell>>12&0xfff), int(cell&0xfff)
+	// float64(counts) * least count, as Geometry.ET computes it.
+	return trigger.Tower{Layer: uint8(cell >> 24), IEta: ieta, IPhi: iphi, Eta: t.eta[ieta], Phi: t.phi[iphi], ET: float64(c) * t.lsb}, true
+}
+
+// wireFill is the scratch of fillWire: the payloads of an event's
+// fragments and one fragment's decoded arrays.
+type wireFill struct {
+	payloads       [][]byte
+	kinds          []int
+	towers, counts []uint32
+}
+
+// fillWire decodes the calorimeter payloads of encoded fragments into
+// ev's towers, as FillEvent does for decoded ones. It returns ok false,
+// with ev unspecified, when a fragment carries a muon payload: the caller
+// then takes the reference path. It returns errWire for bytes that are not
+// a protobuf encoding.
+func (t *towerTable) fillWire(frags [][]byte, lumiSlice uint32, ev *trigger.Event, sc *wireFill) (ok bool, err error) {
+	// Look at every payload first, so that an event the reference path
+	// must take costs no decoding here.
+	sc.payloads, sc.kinds = sc.payloads[:0], sc.kinds[:0]
+	for _, raw := range frags {
+		payload, kind := scanFragment(raw)
+		if kind == fragMuonPayload {
+			return false, nil
+		}
+		sc.payloads, sc.kinds = append(sc.payloads, payload), append(sc.kinds, kind)
+	}
+	out := ev.Towers[:0]
+	for i, raw := range frags {
+		switch sc.kinds[i] {
+		case fragNoPayload:
+			continue
+		case fragOnePayload:
+			if towers, counts, ok := canonicalCalo(sc.payloads[i]); ok {
+				if out, ok = t.appendPairs(out, towers, counts); ok {
+					continue
+				}
+				return false, errWire
+			}
+		}
+		// Any other layout: decode the arrays first, as proto does.
+		plain, err := sc.decodeFragment(raw)
+		if err != nil || !plain {
+			return false, err
+		}
+		counts := sc.counts
+		towers := sc.towers[:min(len(sc.towers), len(counts))]
+		for i, idx := range towers {
+			c := counts[i]
+			if c == 0 {
+				continue
+			}
+			if tw, ok := t.tower(idx, c); ok {
+				out = append(out, tw)
+			}
+		}
+	}
+	ev.Towers = out
+	ev.MuonHits = ev.MuonHits[:0]
+	ev.LumiSlice = lumiSlice
+	return true, nil
+}
+
+// appendPairs appends the towers of two packed arrays read in step: the
+// i-th tower index with the i-th count, up to the shorter array, as
+// FillEvent pairs them. The rest of the longer array must still be well
+// formed, or proto would refuse the fragment.
+func (t *towerTable) appendPairs(out []trigger.Tower, towers, counts []byte) ([]trigger.Tower, bool) {
+	for len(towers) > 0 && len(counts) > 0 {
+		idx, n := uvarint32(towers)
+		c, m := uvarint32(counts)
+		if n < 0 || m < 0 {
+			return out, false
+		}
+		towers, counts = towers[n:], counts[m:]
+		if c == 0 {
+			continue
+		}
+		if t.computeAll {
+			if tw, ok := t.tower(idx, c); ok {
+				out = append(out, tw)
+			}
+			continue
+		}
+		if int(idx) >= len(t.cells) {
+			continue
+		}
+		// Built in place: a Tower returned by value costs a copy.
+		cell := t.cells[idx]
+		ieta, iphi := int(cell>>12&0xfff), int(cell&0xfff)
+		out = append(out, trigger.Tower{Layer: uint8(cell >> 24), IEta: ieta, IPhi: iphi, Eta: t.eta[ieta], Phi: t.phi[iphi], ET: float64(c) * t.lsb})
+	}
+	return out, wellFormed(towers) && wellFormed(counts)
+}
+
+// uvarint32 decodes a varint as uint32 (proto truncates wider values the
+// same way), with the one- and two-byte forms of tower indices and counts
+// inline. n is negative for a malformed varint.
+func uvarint32(b []byte) (uint32, int) {
+	if len(b) > 0 && b[0] < 0x80 {
+		return uint32(b[0]), 1
+	}
+	if len(b) > 1 && b[1] < 0x80 {
+		return uint32(b[0]&0x7f) | uint32(b[1])<<7, 2
+	}
+	v, n := protowire.ConsumeVarint(b)
+	return uint32(v), n
+}
+
+// wellFormed reports whether b is a sequence of valid varints.
+func wellFormed(b []byte) bool {
+	for len(b) > 0 {
+		_, n := protowire.ConsumeVarint(b)
+		if n < 0 {
+			return false
+		}
+		b = b[n:]
+	}
+	return true
+}
+
+// What scanFragment found.
+const (
+	fragNoPayload   = iota // no payload field
+	fragOnePayload         // one calorimeter payload
+	fragOtherLayout        // payload given twice, or something to decode with care
+	fragMuonPayload
+)
+
+// scanFragment looks through a Fragment encoding for its payload without
+// decoding the other fields.
+func scanFragment(b []byte) (payload []byte, kind int) {
+	kind = fragNoPayload
+	for len(b) > 0 {
+		var num protowire.Number
+		var typ protowire.Type
+		if b[0] < 0x80 {
+			num, typ = protowire.Number(b[0]>>3), protowire.Type(b[0]&7)
+			b = b[1:]
+		} else {
+			var n int
+			if num, typ, n = protowire.ConsumeTag(b); n < 0 {
+				return nil, fragOtherLayout
+			}
+			b = b[n:]
+		}
+		switch {
+		case typ == protowire.VarintType:
+			k := 0
+			for k < len(b) && k < 10 && b[k] >= 0x80 {
+				k++
+			}
+			if k >= len(b) || k == 10 || (k == 9 && b[9] > 1) {
+				return nil, fragOtherLayout
+			}
+			b = b[k+1:]
+		case typ == protowire.BytesType:
+			v, n := protowire.ConsumeBytes(b)
+			if n < 0 {
+				return nil, fragOtherLayout
+			}
+			b = b[n:]
+			switch num {
+			case fragMuon:
+				return nil, fragMuonPayload
+			case fragCalo:
+				if kind != fragNoPayload {
+					kind = fragOtherLayout
+				} else {
+					payload, kind = v, fragOnePayload
+				}
+			}
+		default:
+			return nil, fragOtherLayout
+		}
+	}
+	return payload, kind
+}
+
+// canonicalCalo splits a CaloPayload encoding written as proto.Marshal
+// writes it (the towers packed, then the counts packed, each at most once)
+// into the two packed arrays.
+func canonicalCalo(p []byte) (towers, counts []byte, ok bool) {
+	if len(p) > 0 && p[0] == byte(caloTowers<<3|protowire.BytesType) {
+		v, n := protowire.ConsumeBytes(p[1:])
+		if n < 0 {
+			return nil, nil, false
+		}
+		towers, p = v, p[1+n:]
+	}
+	if len(p) > 0 && p[0] == byte(caloCounts<<3|protowire.BytesType) {
+		v, n := protowire.ConsumeBytes(p[1:])
+		if n < 0 {
+			return nil, nil, false
+		}
+		counts, p = v, p[1+n:]
+	}
+	return towers, counts, len(p) == 0
+}
+
+// decodeFragment reads the calorimeter payload of one Fragment encoding
+// into sc, with proto's meaning: a payload given more than once is merged
+// (its arrays appended), fields of other numbers or wire types are not the
+// payload. It reports plain false for a muon payload.
+func (sc *wireFill) decodeFragment(b []byte) (plain bool, err error) {
+	sc.towers, sc.counts = sc.towers[:0], sc.counts[:0]
+	for len(b) > 0 {
+		num, typ, n := protowire.ConsumeTag(b)
+		if n < 0 {
+			return false, errWire
+		}
+		b = b[n:]
+		if typ == protowire.BytesType && (num == fragCalo || num == fragMuon) {
+			payload, n := protowire.ConsumeBytes(b)
+			if n < 0 {
+				return false, errWire
+			}
+			b = b[n:]
+			if num == fragMuon {
+				return false, nil
+			}
+			if err := sc.decodeCalo(payload); err != nil {
+				return false, err
+			}
+			continue
+		}
+		n = protowire.ConsumeFieldValue(num, typ, b)
+		if n < 0 {
+			return false, errWire
+		}
+		b = b[n:]
+	}
+	return true, nil
+}
+
+func (sc *wireFill) decodeCalo(b []byte) error {
+	for len(b) > 0 {
+		num, typ, n := protowire.ConsumeTag(b)
+		if n < 0 {
+			return errWire
+		}
+		b = b[n:]
+		if num == caloTowers || num == caloCounts {
+			dst := &sc.towers
+			if num == caloCounts {
+				dst = &sc.counts
+			}
+			switch typ {
+			case protowire.BytesType:
+				packed, n := protowire.ConsumeBytes(b)
+				if n < 0 {
+					return errWire
+				}
+				b = b[n:]
+				var ok bool
+				if *dst, ok = appendPacked(*dst, packed); !ok {
+					return errWire
+				}
+				continue
+			case protowire.VarintType:
+				v, n := protowire.ConsumeVarint(b)
+				if n < 0 {
+					return errWire
+				}
+				b = b[n:]
+				*dst = append(*dst, uint32(v))
+				continue
+			}
+		}
+		n = protowire.ConsumeFieldValue(num, typ, b)
+		if n < 0 {
+			return errWire
+		}
+		b = b[n:]
+	}
+	return nil
+}
+
+// appendPacked appends the packed varints of b to dst as uint32 (proto
+// truncates wider values the same way).
+func appendPacked(dst []uint32, b []byte) ([]uint32, bool) {
+	for len(b) > 0 {
+		if c := b[0]; c < 0x80 {
+			dst = append(dst, uint32(c))
+			b = b[1:]
+			continue
+		}
+		v, n := protowire.ConsumeVarint(b)
+		if n < 0 {
+			return dst, false
+		}
+		dst = append(dst, uint32(v))
+		b = b[n:]
+	}
+	return dst, true
+}
+
+// appendProgress encodes a worker's decided count for the progress subject:
+// field 1 the worker number, field 2 the events it decided.
+func appendProgress(b []byte, worker int, decided uint64) []byte {
+	b = protowire.AppendTag(b, progressWorker, protowire.VarintType)
+	b = protowire.AppendVarint(b, uint64(worker))
+	b = protowire.AppendTag(b, progressDecided, protowire.VarintType)
+	return protowire.AppendVarint(b, decided)
+}
+
+// parseProgress decodes a progress message.
+func parseProgress(b []byte) (worker int, decided uint64, err error) {
+	for len(b) > 0 {
+		num, typ, n := protowire.ConsumeTag(b)
+		if n < 0 {
+			return 0, 0, errWire
+		}
+		b = b[n:]
+		if typ != protowire.VarintType {
+			if n = protowire.ConsumeFieldValue(num, typ, b); n < 0 {
+				return 0, 0, errWire
+			}
+			b = b[n:]
+			continue
+		}
+		v, n := protowire.ConsumeVarint(b)
+		if n < 0 {
+			return 0, 0, errWire
+		}
+		b = b[n:]
+		switch num {
+		case progressWorker:
+			worker = int(v)
+		case progressDecided:
+			decided = v
+		}
+	}
+	return worker, decided, nil
+}
+
+// fragmentSlab decodes an event's fragments into reused messages for the
+// reference path: calorimeter fragments of the builder's layout without
+// allocating, anything else (a muon payload) with proto.Unmarshal. The
+// messages are what proto.Unmarshal makes of the bytes (the builder
+// service's decoder, the same code, is checked against it) and are valid
+// until the next decode. It is not safe for concurrent use.
+type fragmentSlab struct {
+	calo  []*caloFragment
+	other []*pb.Fragment
+	out   []*pb.Fragment
+}
+
+// caloFragment is a reused fragment whose payload is its own.
+type caloFragment struct {
+	f    pb.Fragment
+	one  pb.Fragment_Calo
+	calo pb.CaloPayload
+}
+
+func (s *fragmentSlab) decode(frags [][]byte) ([]*pb.Fragment, error) {
+	s.out = s.out[:0]
+	nc, no := 0, 0
+	for _, raw := range frags {
+		if nc == len(s.calo) {
+			c := &caloFragment{}
+			c.one.Calo = &c.calo
+			s.calo = append(s.calo, c)
+		}
+		if c := s.calo[nc]; c.fast(raw) {
+			s.out = append(s.out, &c.f)
+			nc++
+			continue
+		}
+		if no == len(s.other) {
+			s.other = append(s.other, &pb.Fragment{})
+		}
+		f := s.other[no]
+		no++
+		if err := proto.Unmarshal(raw, f); err != nil {
+			return nil, err
+		}
+		s.out = append(s.out, f)
+	}
+	return s.out, nil
+}
+
+// fast decodes raw if it has only one-byte tags, the known varint fields
+// and at most one calorimeter payload; it reports false otherwise, leaving
+// c in an unspecified state.
+func (c *caloFragment) fast(raw []byte) bool {
+	f := &c.f
+	f.SourceId, f.Run, f.Orbit, f.Bcid, f.TimestampNs, f.Status, f.Checksum = 0, 0, 0, 0, 0, 0, 0
+	f.Payload = nil
+	c.calo.Towers, c.calo.EtCounts = c.calo.Towers[:0], c.calo.EtCounts[:0]
+	for len(raw) > 0 {
+		tag := raw[0]
+		if tag >= 0x80 {
+			return false
+		}
+		raw = raw[1:]
+		num, typ := protowire.Number(tag>>3), protowire.Type(tag&7)
+		if num == fragCalo {
+			if typ != protowire.BytesType || f.Payload != nil {
+				return false
+			}
+			payload, n := protowire.ConsumeBytes(raw)
+			if n < 0 {
+				return false
+			}
+			raw = raw[n:]
+			towers, counts, ok := canonicalCalo(payload)
+			if !ok {
+				return false
+			}
+			if c.calo.Towers, ok = appendPacked(c.calo.Towers, towers); !ok {
+				return false
+			}
+			if c.calo.EtCounts, ok = appendPacked(c.calo.EtCounts, counts); !ok {
+				return false
+			}
+			f.Payload = &c.one
+			continue
+		}
+		if typ != protowire.VarintType {
+			return false
+		}
+		v, n := protowire.ConsumeVarint(raw)
+		if n < 0 {
+			return false
+		}
+		raw = raw[n:]
+		switch num {
+		case 1:
+			f.SourceId = uint32(v)
+		case 2:
+			f.Run = uint32(v)
+		case 3:
+			f.Orbit = v
+		case 4:
+			f.Bcid = uint32(v)
+		case 5:
+			f.TimestampNs = int64(v)
+		case 6:
+			f.Status = uint32(v)
+		case 9:
+			f.Checksum = uint32(v)
+		default:
+			return false
+		}
+	}
+	return true
+}

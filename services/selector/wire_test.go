@@ -1,0 +1,574 @@
+package selector
+
+import (
+	"context"
+	"fmt"
+	"io/fs"
+	"slices"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/prometheus/client_golang/prometheus"
+	"google.golang.org/protobuf/encoding/protowire"
+	"google.golang.org/protobuf/proto"
+
+	"github.com/bunchsieve/bunchsieve/detector"
+	"github.com/bunchsieve/bunchsieve/examples"
+	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+	"github.com/bunchsieve/bunchsieve/services/transport"
+	"github.com/bunchsieve/bunchsieve/trigger"
+)
+
+// sampleEvents returns n toy-generator crossings of 16 sources as built
+// events, in batches of per events, encoded by proto.Marshal. Every
+// muonEvery-th event also carries a muon sector's fragment (0: none).
+func sampleEvents(tb testing.TB, n, per, muonEvery int) [][]byte {
+	tb.Helper()
+	d := detector.DefaultDescription()
+	part, err := detector.NewPartition(d.Geometry, 16)
+	if err != nil {
+		tb.Fatal(err)
+	}
+	gen, err := detector.NewSimpleGenerator(d, part, 9, detector.SimpleConfig{DijetFraction: 0.2})
+	if err != nil {
+		tb.Fatal(err)
+	}
+	var out [][]byte
+	var c detector.Crossing
+	batch := &pb.EventBatch{Builder: 0}
+	for i := 0; i < n; i++ {
+		gen.Generate(uint64(i), &c)
+		be := &pb.BuiltEvent{Run: 1, Orbit: c.Orbit, Bcid: c.Bcid, TimestampNs: c.TimestampNs, LumiSlice: uint32(i/500) + 1,
+			ReadoutUnixNs: time.Now().UnixNano(), BuiltUnixNs: time.Now().UnixNano()}
+		for s, towers := range c.PerSource {
+			calo := &pb.CaloPayload{}
+			for _, tc := range towers {
+				calo.Towers = append(calo.Towers, tc.Tower)
+				calo.EtCounts = append(calo.EtCounts, tc.Counts)
+			}
+			f := &pb.Fragment{SourceId: uint32(s + 1), Run: 1, Orbit: c.Orbit, Bcid: c.Bcid, TimestampNs: c.TimestampNs, Payload: &pb.Fragment_Calo{Calo: calo}}
+			f.Seal()
+			be.Fragments = append(be.Fragments, f)
+		}
+		if muonEvery > 0 && i%muonEvery == muonEvery-1 {
+			hits := []*pb.MuonHit{{Station: 0, XMm: 1200.5, YMm: -30, ZMm: 88}, {Station: 2, XMm: 4100, YMm: -95.25, ZMm: 301}}
+			f := &pb.Fragment{SourceId: 17, Run: 1, Orbit: c.Orbit, Bcid: c.Bcid, TimestampNs: c.TimestampNs, Payload: &pb.Fragment_Muon{Muon: &pb.MuonPayload{Hits: hits}}}
+			f.Seal()
+			be.Fragments = append(be.Fragments, f)
+		}
+		batch.Events = append(batch.Events, be)
+		if len(batch.Events) == per || i == n-1 {
+			data, err := proto.Marshal(batch)
+			if err != nil {
+				tb.Fatal(err)
+			}
+			out = append(out, data)
+			batch.Events = nil
+			batch.Sequence++
+		}
+	}
+	return out
+}
+
+// referenceTowers decodes a batch with proto.Unmarshal and FillEvent, the
+// reference path, and returns each event's towers; ok is false when proto
+// refuses the bytes.
+func referenceTowers(g *detector.Geometry, data []byte) ([][]trigger.Tower, bool) {
+	var b pb.EventBatch
+	if proto.Unmarshal(data, &b) != nil {
+		return nil, false
+	}
+	var out [][]trigger.Tower
+	for _, be := range b.Events {
+		var ev trigger.Event
+		FillEvent(g, be.Fragments, be.LumiSlice, &ev)
+		out = append(out, ev.Towers)
+	}
+	return out, true
+}
+
+// wireTowers decodes a batch on the wire path; events that need the
+// reference path are reported as nil.
+func wireTowers(t *testing.T, g *detector.Geometry, data []byte) ([][]trigger.Tower, []uint32, error) {
+	tab := newTowerTable(g)
+	var we wireEvent
+	var sc wireFill
+	var out [][]trigger.Tower
+	var lumis []uint32
+	_, err := walkBatch(data, func(raw []byte) error {
+		if err := we.decode(raw); err != nil {
+			return err
+		}
+		var ev trigger.Event
+		ok, err := tab.fillWire(we.frags, we.lumi, &ev, &sc)
+		if err != nil {
+			return err
+		}
+		if !ok {
+			out = append(out, nil)
+		} else {
+			out = append(out, slices.Clone(ev.Towers))
+		}
+		lumis = append(lumis, we.lumi)
+		return nil
+	})
+	return out, lumis, err
+}
+
+// The wire path gives exactly FillEvent's towers (FillEvent after
+// proto.Unmarshal, google.golang.org/protobuf's reference decoder, is the
+// reference) for every event.
+func TestFillWireMatchesFillEvent(t *testing.T) {
+	g := detector.Lantern()
+	for _, data := range sampleEvents(t, 400, 64, 3) {
+		want, ok := referenceTowers(g, data)
+		if !ok {
+			t.Fatal("proto refuses the sample")
+		}
+		got, _, err := wireTowers(t, g, data)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(got) != len(want) {
+			t.Fatalf("%d events, want %d", len(got), len(want))
+		}
+		for i := range want {
+			if len(want[i]) == 0 {
+				t.Fatalf("event %d has no towers: the sample does not exercise the decoder", i)
+			}
+			if got[i] == nil {
+				continue // a muon fragment: the reference path, checked below
+			}
+			if !slices.Equal(got[i], want[i]) {
+				t.Fatalf("event %d: towers differ\n got %v\nwant %v", i, got[i], want[i])
+			}
+		}
+	}
+}
+
+// Fragment layouts other than the builder's own decode with proto's
+// meaning; a muon payload sends the event to the reference path.
+func TestFillWireOtherLayouts(t *testing.T) {
+	g := detector.Lantern()
+	tag := protowire.AppendTag
+	field := func(num protowire.Number, x uint64) []byte {
+		return protowire.AppendVarint(tag(nil, num, protowire.VarintType), x)
+	}
+	bytesField := func(num protowire.Number, x []byte) []byte {
+		return protowire.AppendBytes(tag(nil, num, protowire.BytesType), x)
+	}
+	packed := func(xs ...uint64) []byte {
+		var b []byte
+		for _, x := range xs {
+			b = protowire.AppendVarint(b, x)
+		}
+		return b
+	}
+	cat := func(parts ...[]byte) []byte { return slices.Concat(parts...) }
+	calo := cat(bytesField(1, packed(5, 300, 7, 99999)), bytesField(2, packed(4, 0, 70000)))
+	cases := map[string]struct {
+		frag  []byte
+		plain bool
+	}{
+		"canonical":      {cat(field(1, 2), bytesField(7, calo), field(9, 5)), true},
+		"unpacked":       {cat(bytesField(7, cat(field(1, 5), field(2, 9), field(1, 6), field(2, 3)))), true},
+		"calo twice":     {cat(bytesField(7, calo), bytesField(7, cat(bytesField(1, packed(8)), bytesField(2, packed(2))))), true},
+		"unknown fields": {cat(field(12, 1), bytesField(7, cat(field(9, 1), calo)), bytesField(13, []byte("z"))), true},
+		"wrong type":     {cat(field(7, 1), bytesField(7, calo)), true},
+		"more counts":    {cat(bytesField(7, cat(bytesField(1, packed(1)), bytesField(2, packed(3, 4, 5))))), true},
+		"muon":           {cat(bytesField(8, bytesField(1, field(1, 1)))), false},
+		"calo then muon": {cat(bytesField(7, calo), bytesField(8, nil)), false},
+	}
+	for name, c := range cases {
+		t.Run(name, func(t *testing.T) {
+			ev := cat(field(1, 1), field(5, 3), bytesField(6, c.frag), bytesField(6, c.frag))
+			data := cat(field(1, 0), bytesField(3, ev), bytesField(15, nil), bytesField(3, ev))
+			want, ok := referenceTowers(g, data)
+			if !ok {
+				t.Fatal("proto refuses the case")
+			}
+			got, lumis, err := wireTowers(t, g, data)
+			if err != nil {
+				t.Fatal(err)
+			}
+			for i := range want {
+				if lumis[i] != 3 {
+					t.Fatalf("lumi slice %d, want 3", lumis[i])
+				}
+				if !c.plain {
+					if got[i] != nil {
+						t.Fatal("a muon payload must take the reference path")
+					}
+					continue
+				}
+				if !slices.Equal(got[i], want[i]) {
+					t.Fatalf("towers differ\n got %v\nwant %v", got[i], want[i])
+				}
+			}
+		})
+	}
+}
+
+// The reference path's fragment decoder gives proto.Unmarshal's fragments
+// (google.golang.org/protobuf, the reference decoder), layouts other than
+// the builder's included.
+func TestSlabMatchesProto(t *testing.T) {
+	var frags [][]byte
+	for _, data := range sampleEvents(t, 30, 30, 3) {
+		var b pb.EventBatch
+		if err := proto.Unmarshal(data, &b); err != nil {
+			t.Fatal(err)
+		}
+		for _, be := range b.Events {
+			for _, f := range be.Fragments {
+				raw, _ := proto.Marshal(f)
+				frags = append(frags, raw)
+			}
+		}
+	}
+	tag := protowire.AppendTag
+	field := func(num protowire.Number, x uint64) []byte {
+		return protowire.AppendVarint(tag(nil, num, protowire.VarintType), x)
+	}
+	bytesField := func(num protowire.Number, x []byte) []byte {
+		return protowire.AppendBytes(tag(nil, num, protowire.BytesType), x)
+	}
+	calo := slices.Concat(bytesField(1, []byte{5, 6}), bytesField(2, []byte{1, 2}))
+	frags = append(frags,
+		slices.Concat(field(1, 3), bytesField(7, calo), bytesField(7, calo)),
+		slices.Concat(field(1, 3), bytesField(7, slices.Concat(field(1, 5), field(2, 7)))),
+		slices.Concat(field(15, 3), bytesField(7, calo)),
+		nil,
+	)
+	var slab fragmentSlab
+	// Twice, so that reused messages are checked as well as fresh ones.
+	for round := 0; round < 2; round++ {
+		got, err := slab.decode(frags)
+		if err != nil {
+			t.Fatal(err)
+		}
+		muons := 0
+		for i, raw := range frags {
+			var want pb.Fragment
+			if err := proto.Unmarshal(raw, &want); err != nil {
+				t.Fatal(err)
+			}
+			if !proto.Equal(got[i], &want) {
+				t.Fatalf("fragment %d: got %v, want %v", i, got[i], &want)
+			}
+			if want.GetMuon() != nil {
+				muons++
+			}
+		}
+		if muons == 0 {
+			t.Fatal("no muon fragment in the sample")
+		}
+	}
+}
+
+// FuzzFillWire: whatever proto decodes, the wire path decodes to the same
+// towers (or hands to the reference path); it never panics.
+func FuzzFillWire(f *testing.F) {
+	for _, data := range sampleEvents(f, 8, 2, 3) {
+		f.Add(data)
+	}
+	g := detector.Lantern()
+	f.Fuzz(func(t *testing.T, data []byte) {
+		want, ok := referenceTowers(g, data)
+		got, _, err := wireTowers(t, g, data)
+		if !ok {
+			return
+		}
+		if err != nil {
+			t.Fatalf("proto decodes the batch, the wire path fails: %v", err)
+		}
+		for i := range want {
+			if got[i] != nil && !slices.Equal(got[i], want[i]) {
+				t.Fatalf("event %d: towers differ", i)
+			}
+		}
+	})
+}
+
+func newTestSelector(t testing.TB, nc *nats.Conn, cfg Config) *Selector {
+	t.Helper()
+	data, err := fs.ReadFile(examples.FS, examples.StarterMenu)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m, err := trigger.ParseMenu("starter.yaml", data)
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg.Menu, cfg.Geometry = m, detector.Lantern()
+	s, err := New(cfg, nc, prometheus.NewRegistry())
+	if err != nil {
+		t.Fatal(err)
+	}
+	return s
+}
+
+// A batch decided through the wire path gives the decisions of the same
+// events decided one by one after proto.Unmarshal.
+func TestWireDecisionsMatchProtoPath(t *testing.T) {
+	big := Config{BatchDecisions: 1 << 30}
+	wire, ref := newTestSelector(t, nil, big), newTestSelector(t, nil, big)
+	for _, data := range sampleEvents(t, 600, 50, 3) {
+		wire.mu.Lock()
+		if _, err := walkBatch(data, wire.decideWire); err != nil {
+			t.Fatal(err)
+		}
+		wire.mu.Unlock()
+		var b pb.EventBatch
+		if err := proto.Unmarshal(data, &b); err != nil {
+			t.Fatal(err)
+		}
+		ref.mu.Lock()
+		for _, be := range b.Events {
+			ref.decide(be)
+		}
+		ref.mu.Unlock()
+	}
+	if len(wire.out.Decisions) != 600 || len(ref.out.Decisions) != 600 {
+		t.Fatalf("%d and %d decisions, want 600", len(wire.out.Decisions), len(ref.out.Decisions))
+	}
+	passed := 0
+	for i, d := range wire.out.Decisions {
+		if !proto.Equal(d, ref.out.Decisions[i]) {
+			t.Fatalf("decision %d differs:\n wire %v\n  ref %v", i, d, ref.out.Decisions[i])
+		}
+		passed += len(d.Rules)
+	}
+	if passed == 0 {
+		t.Fatal("no rule passed: the sample does not exercise the menu")
+	}
+	if !slices.Equal(wire.Counts(), ref.Counts()) {
+		t.Fatalf("rule counts differ: %v and %v", wire.Counts(), ref.Counts())
+	}
+}
+
+// A decision reused after its batch was published carries nothing of the
+// event it was used for before.
+func TestReusedDecisionsAreClean(t *testing.T) {
+	srv, err := transport.Embedded("127.0.0.1", -1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
+	nc, err := transport.ConnectInProcess(srv, "t")
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(nc.Close)
+	var mu sync.Mutex
+	var got []*pb.Decision
+	sub, err := nc.Subscribe(transport.Subjects{}.Decisions(), func(m *nats.Msg) {
+		var b pb.DecisionBatch
+		if err := proto.Unmarshal(m.Data, &b); err != nil {
+			t.Error(err)
+		}
+		mu.Lock()
+		got = append(got, b.Decisions...)
+		mu.Unlock()
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer sub.Unsubscribe()
+	s := newTestSelector(t, nc, Config{BatchDecisions: 7})
+	ref := newTestSelector(t, nil, Config{BatchDecisions: 1 << 30})
+	for _, data := range sampleEvents(t, 300, 30, 3) {
+		s.onMsg(&nats.Msg{Data: data})
+		var b pb.EventBatch
+		_ = proto.Unmarshal(data, &b)
+		ref.mu.Lock()
+		for _, be := range b.Events {
+			ref.decide(be)
+		}
+		ref.mu.Unlock()
+	}
+	s.mu.Lock()
+	_ = s.publishLocked()
+	s.mu.Unlock()
+	_ = nc.Flush()
+	deadline := time.Now().Add(5 * time.Second)
+	for {
+		mu.Lock()
+		n := len(got)
+		mu.Unlock()
+		if n >= 300 || time.Now().After(deadline) {
+			break
+		}
+		time.Sleep(2 * time.Millisecond)
+	}
+	mu.Lock()
+	defer mu.Unlock()
+	if len(got) != 300 {
+		t.Fatalf("%d decisions published, want 300", len(got))
+	}
+	for i, d := range got {
+		if !proto.Equal(d, ref.out.Decisions[i]) {
+			t.Fatalf("decision %d: published %v, want %v", i, d, ref.out.Decisions[i])
+		}
+	}
+}
+
+// Several workers in one queue group end together once all of them have
+// decided every event the builders emitted, although the queue group hands
+// each builder's end-of-run batch to one worker only.
+func TestWorkersEndTogether(t *testing.T) {
+	srv, err := transport.Embedded("127.0.0.1", -1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
+	conn := func() *nats.Conn {
+		nc, err := transport.ConnectInProcess(srv, "t")
+		if err != nil {
+			t.Fatal(err)
+		}
+		t.Cleanup(nc.Close)
+		return nc
+	}
+	for _, workers := range []int{1, 3} {
+		t.Run(fmt.Sprint(workers, " workers"), func(t *testing.T) {
+			subjects := transport.Subjects{Prefix: fmt.Sprintf("w%d", workers)}
+			sels := make([]*Selector, workers)
+			done := make(chan error, workers)
+			for w := range sels {
+				sels[w] = newTestSelector(t, conn(), Config{Worker: w, Workers: workers, Builders: 2, Subjects: subjects})
+				go func() { done <- sels[w].Run(context.Background()) }()
+				<-sels[w].Ready()
+			}
+			pub := conn()
+			batches := sampleEvents(t, 240, 10, 3)
+			perBuilder := map[uint32]uint64{}
+			for i, data := range batches {
+				// Two builders: alternate batches, rewriting the builder field.
+				var b pb.EventBatch
+				_ = proto.Unmarshal(data, &b)
+				b.Builder = uint32(i % 2)
+				perBuilder[b.Builder] += uint64(len(b.Events))
+				out, _ := proto.Marshal(&b)
+				if err := pub.Publish(subjects.Built(), out); err != nil {
+					t.Fatal(err)
+				}
+			}
+			for k := uint32(0); k < 2; k++ {
+				end, _ := proto.Marshal(&pb.EventBatch{Builder: k, EndOfRun: true, EventsTotal: perBuilder[k]})
+				if err := pub.Publish(subjects.Built(), end); err != nil {
+					t.Fatal(err)
+				}
+				if err := pub.Publish(subjects.BuiltEnd(), end); err != nil {
+					t.Fatal(err)
+				}
+			}
+			for range sels {
+				select {
+				case err := <-done:
+					if err != nil {
+						t.Fatal(err)
+					}
+				case <-time.After(10 * time.Second):
+					t.Fatal("workers did not end")
+				}
+			}
+			var total uint64
+			for _, s := range sels {
+				total += s.Events()
+			}
+			if total != 240 {
+				t.Fatalf("workers decided %d events together, want 240", total)
+			}
+		})
+	}
+}
+
+// BenchmarkSelectBatch runs the selection's message handler on batches of
+// 64 built events: decoding, features, the starter menu and the decisions,
+// published to an in-process NATS server with no subscriber. "calo" events
+// have the toy generator's 16 calorimeter fragments; "calo+muon" events
+// also a muon fragment, which sends them through FillEvent.
+func BenchmarkSelectBatch(b *testing.B) {
+	for _, c := range []struct {
+		name      string
+		muonEvery int
+	}{{"calo", 0}, {"calo+muon", 1}} {
+		b.Run(c.name, func(b *testing.B) { benchmarkSelectBatch(b, c.muonEvery) })
+	}
+}
+
+func benchmarkSelectBatch(b *testing.B, muonEvery int) {
+	batches := sampleEvents(b, 6400, 64, muonEvery)
+	srv, err := transport.Embedded("127.0.0.1", -1)
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer func() { srv.Shutdown(); srv.WaitForShutdown() }()
+	nc, err := transport.ConnectInProcess(srv, "bench")
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer nc.Close()
+	s := newTestSelector(b, nc, Config{})
+	b.ReportAllocs()
+	events := 0
+	c0 := cpuTime()
+	for i := 0; b.Loop(); i++ {
+		s.onMsg(&nats.Msg{Data: batches[i%len(batches)]})
+		events += 64
+	}
+	b.ReportMetric(float64(events)/b.Elapsed().Seconds(), "events/s")
+	b.ReportMetric(float64((cpuTime()-c0).Nanoseconds())/1e3/float64(events), "cpu-us/event")
+}
+
+// BenchmarkFill compares the wire path with proto.Unmarshal and FillEvent
+// on the same batches.
+func BenchmarkFill(b *testing.B) {
+	batches := sampleEvents(b, 6400, 64, 0)
+	g := detector.Lantern()
+	b.Run("wire", func(b *testing.B) {
+		tab := newTowerTable(g)
+		var we wireEvent
+		var sc wireFill
+		var ev trigger.Event
+		b.ReportAllocs()
+		events := 0
+		c0 := cpuTime()
+		for i := 0; b.Loop(); i++ {
+			_, err := walkBatch(batches[i%len(batches)], func(raw []byte) error {
+				if err := we.decode(raw); err != nil {
+					return err
+				}
+				_, err := tab.fillWire(we.frags, we.lumi, &ev, &sc)
+				events++
+				return err
+			})
+			if err != nil {
+				b.Fatal(err)
+			}
+		}
+		b.ReportMetric(float64(events)/b.Elapsed().Seconds(), "events/s")
+		b.ReportMetric(float64((cpuTime()-c0).Nanoseconds())/1e3/float64(events), "cpu-us/event")
+	})
+	b.Run("proto", func(b *testing.B) {
+		var ev trigger.Event
+		b.ReportAllocs()
+		events := 0
+		c0 := cpuTime()
+		for i := 0; b.Loop(); i++ {
+			var eb pb.EventBatch
+			if err := proto.Unmarshal(batches[i%len(batches)], &eb); err != nil {
+				b.Fatal(err)
+			}
+			for _, be := range eb.Events {
+				FillEvent(g, be.Fragments, be.LumiSlice, &ev)
+				events++
+			}
+		}
+		b.ReportMetric(float64(events)/b.Elapsed().Seconds(), "events/s")
+		b.ReportMetric(float64((cpuTime()-c0).Nanoseconds())/1e3/float64(events), "cpu-us/event")
+	})
+}
