@@ -11,6 +11,7 @@ import (
 	"google.golang.org/protobuf/encoding/protowire"
 
 	"github.com/bunchsieve/bunchsieve/detector"
+	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
 	"github.com/bunchsieve/bunchsieve/services/emulator"
 	"github.com/bunchsieve/bunchsieve/services/recording"
 )
@@ -289,7 +290,7 @@ func inspectBatch(data []byte) (batchInfo, error) {
 	var info batchInfo
 	var last []byte
 	for len(data) > 0 {
-		num, typ, n := protowire.ConsumeTag(data)
+		num, typ, n := pb.ConsumeTag(data)
 		if n < 0 {
 			return info, protowire.ParseError(n)
 		}
@@ -320,7 +321,7 @@ func inspectBatch(data []byte) (batchInfo, error) {
 		data = data[n:]
 	}
 	for len(last) > 0 {
-		num, typ, n := protowire.ConsumeTag(last)
+		num, typ, n := pb.ConsumeTag(last)
 		if n < 0 {
 			return info, protowire.ParseError(n)
 		}
@@ -345,13 +346,4 @@ func inspectBatch(data []byte) (batchInfo, error) {
 		last = last[n:]
 	}
 	return info, nil
-}
-
-// Size returns the memory the dataset's encodings take.
-func (ds *Dataset) Size() int64 {
-	n := ds.Bytes
-	for _, b := range ds.Ends {
-		n += int64(len(b.Data))
-	}
-	return n
 }

@@ -14,6 +14,7 @@ import (
 	"google.golang.org/protobuf/encoding/protowire"
 
 	"github.com/bunchsieve/bunchsieve/builder"
+	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
 	"github.com/bunchsieve/bunchsieve/services/assembler"
 	"github.com/bunchsieve/bunchsieve/services/runconfig"
 	"github.com/bunchsieve/bunchsieve/services/selector"
@@ -245,7 +246,7 @@ func (p *pipeline) run(ctx context.Context, crossings uint64, rateHz float64, dr
 func countField(b []byte, num protowire.Number) int {
 	n := 0
 	for len(b) > 0 {
-		f, typ, k := protowire.ConsumeTag(b)
+		f, typ, k := pb.ConsumeTag(b)
 		if k < 0 {
 			return n
 		}

@@ -20,7 +20,7 @@ import (
 // of one long run. Nothing is generated again and no fragment is decoded
 // into a message: the restamper rewrites the few varints that change and
 // updates the CRC-32C through its linearity (below), which costs about a
-// tenth of encoding the fragment anew (BenchmarkRestamp).
+// tenth of decoding and encoding the fragment (BenchmarkRestamp).
 //
 // A crossing keeps the builder share it had in lap 0: the shares of later
 // laps do not follow builder.Partition, which no builder checks.
@@ -88,7 +88,7 @@ func (r *Restamper) Restamp(dst []byte, b *Batch, lap uint64) ([]byte, error) {
 	// lap may have to put it in, before the first field numbered above it.
 	wroteSeq := seqShift == 0
 	for len(data) > 0 {
-		num, typ, n := protowire.ConsumeTag(data)
+		num, typ, n := pb.ConsumeTag(data)
 		if n < 0 {
 			return dst, fmt.Errorf("loadtest: restamp: %w", protowire.ParseError(n))
 		}
@@ -240,7 +240,7 @@ func uvarint(b []byte) (uint64, int) {
 func packedCounts(p []byte) (towers, counts int, ok bool) {
 	seen := [3]bool{}
 	for len(p) > 0 {
-		num, typ, n := protowire.ConsumeTag(p)
+		num, typ, n := pb.ConsumeTag(p)
 		if n < 0 || typ != protowire.BytesType || (num != 1 && num != 2) || seen[num] {
 			return 0, 0, false
 		}

@@ -2,6 +2,7 @@ package assembler
 
 import (
 	"errors"
+	"math"
 
 	"google.golang.org/protobuf/encoding/protowire"
 	"google.golang.org/protobuf/proto"
@@ -16,10 +17,11 @@ import (
 // was decoded from, so that a built event can be encoded by concatenating
 // them instead of encoding every fragment again.
 //
-// The fast decoder understands the layout the readout writes. Anything
-// else (a muon payload, unknown fields, a payload split into several
-// occurrences, an unexpected wire type) is handed to proto.Unmarshal for
-// that fragment, so the result is always what proto.Unmarshal gives.
+// The fast decoder understands the layout the readout writes, calorimeter
+// and muon payloads. Anything else (unknown fields, a payload split into
+// several occurrences, an unexpected wire type) is handed to
+// proto.Unmarshal for that fragment, so the result is always what
+// proto.Unmarshal gives.
 
 // Field numbers of FragmentBatch, Fragment and CaloPayload
 // (proto/bunchsieve/v1/fragment.proto).
@@ -38,10 +40,17 @@ const (
 	fragTimestamp = 5
 	fragStatus    = 6
 	fragCalo      = 7
+	fragMuon      = 8
 	fragChecksum  = 9
 
 	caloTowers = 1
 	caloCounts = 2
+
+	muonHits    = 1
+	hitStation  = 1
+	hitX, hitY  = 2, 3
+	hitZ        = 4
+	hitMaxField = 4
 )
 
 // errWire reports bytes that are not a protobuf encoding.
@@ -50,12 +59,15 @@ var errWire = errors.New("assembler: malformed protobuf")
 // heldFragment is a pooled fragment with the bytes it was decoded from.
 // The builder holds &frag until the fragment's event is emitted.
 type heldFragment struct {
-	frag pb.Fragment
-	calo pb.CaloPayload
-	one  pb.Fragment_Calo
-	raw  []byte // the fragment's encoding; points into the message
+	frag    pb.Fragment
+	calo    pb.CaloPayload
+	one     pb.Fragment_Calo
+	muon    pb.MuonPayload
+	oneMuon pb.Fragment_Muon
+	hits    []pb.MuonHit // storage behind muon.Hits
+	raw     []byte       // the fragment's encoding; points into the message
 	// foreign is set when proto.Unmarshal filled frag: its payload is then
-	// proto's own, and the record is not reused.
+	// proto's own, and frag is reset before the record is used again.
 	foreign bool
 }
 
@@ -87,17 +99,18 @@ func (p *fragmentPool) get() *heldFragment {
 	}
 	h := &heldFragment{}
 	h.one.Calo = &h.calo
+	h.oneMuon.Muon = &h.muon
 	p.owner[&h.frag] = h
 	return h
 }
 
-// put returns h to the pool. Records proto.Unmarshal filled are dropped:
-// their payload is not the record's own.
+// put returns h to the pool. A record proto.Unmarshal filled is reset
+// first, so that nothing of proto's (unknown fields) stays in it.
 func (p *fragmentPool) put(h *heldFragment) {
 	h.raw = nil
 	if h.foreign {
-		delete(p.owner, &h.frag)
-		return
+		proto.Reset(&h.frag)
+		h.foreign = false
 	}
 	p.free = append(p.free, h)
 }
@@ -113,7 +126,7 @@ func (p *fragmentPool) held(f *pb.Fragment) *heldFragment { return p.owner[f] }
 func decodeBatch(data []byte, wb *wireBatch, p *fragmentPool) error {
 	*wb = wireBatch{frags: wb.frags[:0]}
 	for len(data) > 0 {
-		num, typ, n := protowire.ConsumeTag(data)
+		num, typ, n := pb.ConsumeTag(data)
 		if n < 0 {
 			return wb.fail(p)
 		}
@@ -188,6 +201,17 @@ func (h *heldFragment) fast(raw []byte) bool {
 	h.calo.Towers, h.calo.EtCounts = h.calo.Towers[:0], h.calo.EtCounts[:0]
 	calo := false
 	for len(raw) > 0 {
+		if raw[0] == fragMuon<<3|byte(protowire.BytesType) {
+			// At most one payload of either kind: proto merges or
+			// replaces repeated ones.
+			payload, n := protowire.ConsumeBytes(raw[1:])
+			if n < 0 || f.Payload != nil || !h.decodeMuon(payload) {
+				return false
+			}
+			raw = raw[1+n:]
+			f.Payload = &h.oneMuon
+			continue
+		}
 		// Every field of a Fragment has a one-byte tag.
 		tag := raw[0]
 		if tag >= 0x80 {
@@ -196,7 +220,7 @@ func (h *heldFragment) fast(raw []byte) bool {
 		raw = raw[1:]
 		num, typ := protowire.Number(tag>>3), protowire.Type(tag&7)
 		if num == fragCalo {
-			if typ != protowire.BytesType || calo {
+			if typ != protowire.BytesType || calo || f.Payload != nil {
 				return false
 			}
 			payload, n := protowire.ConsumeBytes(raw)
@@ -238,6 +262,61 @@ func (h *heldFragment) fast(raw []byte) bool {
 	return true
 }
 
+// decodeMuon fills h.muon from a MuonPayload encoding whose hits are
+// written as proto.Marshal writes them: one-byte tags, the known fields
+// each with its wire type.
+func (h *heldFragment) decodeMuon(b []byte) bool {
+	h.hits = h.hits[:0]
+	for len(b) > 0 {
+		if b[0] != muonHits<<3|byte(protowire.BytesType) {
+			return false
+		}
+		m, n := protowire.ConsumeBytes(b[1:])
+		if n < 0 {
+			return false
+		}
+		b = b[1+n:]
+		var hit pb.MuonHit
+		for len(m) > 0 {
+			tag := m[0]
+			num, typ := tag>>3, protowire.Type(tag&7)
+			m = m[1:]
+			switch {
+			case num == hitStation && typ == protowire.VarintType:
+				v, n := uvarint(m)
+				if n < 0 {
+					return false
+				}
+				hit.Station, m = uint32(v), m[n:]
+			case num >= hitX && num <= hitMaxField && typ == protowire.Fixed32Type:
+				v, n := protowire.ConsumeFixed32(m)
+				if n < 0 {
+					return false
+				}
+				x := math.Float32frombits(v)
+				switch num {
+				case hitX:
+					hit.XMm = x
+				case hitY:
+					hit.YMm = x
+				default:
+					hit.ZMm = x
+				}
+				m = m[n:]
+			default:
+				return false
+			}
+		}
+		h.hits = append(h.hits, pb.MuonHit{Station: hit.Station, XMm: hit.XMm, YMm: hit.YMm, ZMm: hit.ZMm})
+	}
+	// Pointers are taken once the storage has stopped moving.
+	h.muon.Hits = h.muon.Hits[:0]
+	for i := range h.hits {
+		h.muon.Hits = append(h.muon.Hits, &h.hits[i])
+	}
+	return true
+}
+
 // uvarint decodes a varint, with the one- and two-byte forms inline.
 func uvarint(b []byte) (uint64, int) {
 	if len(b) > 0 && b[0] < 0x80 {
@@ -253,7 +332,7 @@ func uvarint(b []byte) (uint64, int) {
 // packed or not, as proto does.
 func (h *heldFragment) decodeCalo(b []byte) bool {
 	for len(b) > 0 {
-		num, typ, n := protowire.ConsumeTag(b)
+		num, typ, n := pb.ConsumeTag(b)
 		if n < 0 || (num != caloTowers && num != caloCounts) {
 			return false
 		}

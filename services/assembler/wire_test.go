@@ -94,6 +94,54 @@ func TestDecodeBatchMatchesProto(t *testing.T) {
 	}
 }
 
+// Batches of the physics generator, muon sectors included, decode as
+// proto.Unmarshal decodes them: the muon payloads take the fast path too.
+func TestDecodeMuonBatchesMatchProto(t *testing.T) {
+	d := detector.DefaultDescription()
+	part, err := detector.NewPartition(d.Geometry, 16)
+	if err != nil {
+		t.Fatal(err)
+	}
+	gen, err := detector.NewGenerator(d, part, 5, detector.GeneratorConfig{Kind: detector.GeneratorPhysics, Physics: detector.PhysicsConfig{Force: "z-mumu"}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var c collect
+	emu, err := emulator.New(emulator.Config{Crossings: 96, Partition: part}, gen, part.AllSourceIDs(), &c, prometheus.NewRegistry())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := emu.Run(context.Background()); err != nil {
+		t.Fatal(err)
+	}
+	hits := 0
+	for _, data := range c.batches {
+		checkAgainstProto(t, data)
+		var b pb.FragmentBatch
+		_ = proto.Unmarshal(data, &b)
+		for _, f := range b.Fragments {
+			hits += len(f.GetMuon().GetHits())
+		}
+	}
+	if hits == 0 {
+		t.Fatal("no muon hits in the sample")
+	}
+	// The fast path, not proto's, decoded them.
+	p := newFragmentPool()
+	var wb wireBatch
+	for _, data := range c.batches {
+		if err := decodeBatch(data, &wb, p); err != nil {
+			t.Fatal(err)
+		}
+		for _, h := range wb.frags {
+			if h.foreign {
+				t.Fatalf("fragment of source %d went through proto.Unmarshal", h.frag.SourceId)
+			}
+			p.put(h)
+		}
+	}
+}
+
 // Layouts the readout does not write but protobuf allows decode as proto
 // decodes them: they take proto's path.
 func TestDecodeBatchOtherLayouts(t *testing.T) {

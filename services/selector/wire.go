@@ -2,6 +2,7 @@ package selector
 
 import (
 	"errors"
+	"math"
 
 	"google.golang.org/protobuf/encoding/protowire"
 	"google.golang.org/protobuf/proto"
@@ -40,6 +41,11 @@ const (
 	caloTowers = 1
 	caloCounts = 2
 
+	muonHits   = 1
+	hitStation = 1
+	hitX       = 2
+	hitZ       = 4
+
 	progressWorker  = 1
 	progressDecided = 2
 )
@@ -61,7 +67,7 @@ type batchHeader struct {
 func walkBatch(data []byte, fn func(event []byte) error) (batchHeader, error) {
 	var h batchHeader
 	for len(data) > 0 {
-		num, typ, n := protowire.ConsumeTag(data)
+		num, typ, n := pb.ConsumeTag(data)
 		if n < 0 {
 			return h, errWire
 		}
@@ -119,7 +125,7 @@ type wireEvent struct {
 func (we *wireEvent) decode(b []byte) error {
 	*we = wireEvent{frags: we.frags[:0]}
 	for len(b) > 0 {
-		num, typ, n := protowire.ConsumeTag(b)
+		num, typ, n := pb.ConsumeTag(b)
 		if n < 0 {
 			return errWire
 		}
@@ -218,37 +224,31 @@ func (t *towerTable) tower(idx, c uint32) (trigger.Tower, bool) {
 	return trigger.Tower{Layer: uint8(cell >> 24), IEta: ieta, IPhi: iphi, Eta: t.eta[ieta], Phi: t.phi[iphi], ET: float64(c) * t.lsb}, true
 }
 
-// wireFill is the scratch of fillWire: the payloads of an event's
-// fragments and one fragment's decoded arrays.
+// wireFill is the scratch of fillWire: one fragment's decoded arrays.
 type wireFill struct {
-	payloads       [][]byte
-	kinds          []int
 	towers, counts []uint32
 }
 
-// fillWire decodes the calorimeter payloads of encoded fragments into
-// ev's towers, as FillEvent does for decoded ones. It returns ok false,
-// with ev unspecified, when a fragment carries a muon payload: the caller
-// then takes the reference path. It returns errWire for bytes that are not
-// a protobuf encoding.
+// fillWire decodes the payloads of encoded fragments into ev, as
+// FillEvent does for decoded ones: calorimeter towers and muon-station
+// hits. It returns ok false, with ev unspecified, for a layout it leaves
+// to the reference path (a muon payload not written as proto.Marshal
+// writes it, or given together with another payload). It returns errWire
+// for bytes that are not a protobuf encoding.
 func (t *towerTable) fillWire(frags [][]byte, lumiSlice uint32, ev *trigger.Event, sc *wireFill) (ok bool, err error) {
-	// Look at every payload first, so that an event the reference path
-	// must take costs no decoding here.
-	sc.payloads, sc.kinds = sc.payloads[:0], sc.kinds[:0]
+	out, hits := ev.Towers[:0], ev.MuonHits[:0]
 	for _, raw := range frags {
 		payload, kind := scanFragment(raw)
-		if kind == fragMuonPayload {
-			return false, nil
-		}
-		sc.payloads, sc.kinds = append(sc.payloads, payload), append(sc.kinds, kind)
-	}
-	out := ev.Towers[:0]
-	for i, raw := range frags {
-		switch sc.kinds[i] {
+		switch kind {
 		case fragNoPayload:
 			continue
+		case fragMuonPayload:
+			if hits, ok = appendHits(hits, payload); !ok {
+				return false, nil
+			}
+			continue
 		case fragOnePayload:
-			if towers, counts, ok := canonicalCalo(sc.payloads[i]); ok {
+			if towers, counts, ok := canonicalCalo(payload); ok {
 				if out, ok = t.appendPairs(out, towers, counts); ok {
 					continue
 				}
@@ -272,10 +272,50 @@ func (t *towerTable) fillWire(frags [][]byte, lumiSlice uint32, ev *trigger.Even
 			}
 		}
 	}
-	ev.Towers = out
-	ev.MuonHits = ev.MuonHits[:0]
+	ev.Towers, ev.MuonHits = out, hits
 	ev.LumiSlice = lumiSlice
 	return true, nil
+}
+
+// appendHits appends the hits of a MuonPayload encoding written as
+// proto.Marshal writes it (one-byte tags, station as a varint, x, y, z as
+// fixed32 floats), as FillEvent converts them; ok is false for any other
+// layout.
+func appendHits(dst []trigger.MuonHit, b []byte) ([]trigger.MuonHit, bool) {
+	for len(b) > 0 {
+		if b[0] != muonHits<<3|byte(protowire.BytesType) {
+			return dst, false
+		}
+		m, n := protowire.ConsumeBytes(b[1:])
+		if n < 0 {
+			return dst, false
+		}
+		b = b[1+n:]
+		var station uint32
+		var xyz [3]float32
+		for len(m) > 0 {
+			num, typ := m[0]>>3, protowire.Type(m[0]&7)
+			m = m[1:]
+			switch {
+			case num == hitStation && typ == protowire.VarintType:
+				v, n := uvarint32(m)
+				if n < 0 {
+					return dst, false
+				}
+				station, m = v, m[n:]
+			case num >= hitX && num <= hitZ && typ == protowire.Fixed32Type:
+				v, n := protowire.ConsumeFixed32(m)
+				if n < 0 {
+					return dst, false
+				}
+				xyz[num-hitX], m = math.Float32frombits(v), m[n:]
+			default:
+				return dst, false
+			}
+		}
+		dst = append(dst, trigger.MuonHit{Station: int(station), X: float64(xyz[0]), Y: float64(xyz[1]), Z: float64(xyz[2])})
+	}
+	return dst, true
 }
 
 // appendPairs appends the towers of two packed arrays read in step: the
@@ -341,7 +381,7 @@ const (
 	fragNoPayload   = iota // no payload field
 	fragOnePayload         // one calorimeter payload
 	fragOtherLayout        // payload given twice, or something to decode with care
-	fragMuonPayload
+	fragMuonPayload        // one muon payload
 )
 
 // scanFragment looks through a Fragment encoding for its payload without
@@ -356,7 +396,7 @@ func scanFragment(b []byte) (payload []byte, kind int) {
 			b = b[1:]
 		} else {
 			var n int
-			if num, typ, n = protowire.ConsumeTag(b); n < 0 {
+			if num, typ, n = pb.ConsumeTag(b); n < 0 {
 				return nil, fragOtherLayout
 			}
 			b = b[n:]
@@ -377,14 +417,14 @@ func scanFragment(b []byte) (payload []byte, kind int) {
 				return nil, fragOtherLayout
 			}
 			b = b[n:]
-			switch num {
-			case fragMuon:
-				return nil, fragMuonPayload
-			case fragCalo:
-				if kind != fragNoPayload {
+			if num == fragCalo || num == fragMuon {
+				switch {
+				case kind != fragNoPayload:
 					kind = fragOtherLayout
-				} else {
+				case num == fragCalo:
 					payload, kind = v, fragOnePayload
+				default:
+					payload, kind = v, fragMuonPayload
 				}
 			}
 		default:
@@ -422,7 +462,7 @@ func canonicalCalo(p []byte) (towers, counts []byte, ok bool) {
 func (sc *wireFill) decodeFragment(b []byte) (plain bool, err error) {
 	sc.towers, sc.counts = sc.towers[:0], sc.counts[:0]
 	for len(b) > 0 {
-		num, typ, n := protowire.ConsumeTag(b)
+		num, typ, n := pb.ConsumeTag(b)
 		if n < 0 {
 			return false, errWire
 		}
@@ -452,7 +492,7 @@ func (sc *wireFill) decodeFragment(b []byte) (plain bool, err error) {
 
 func (sc *wireFill) decodeCalo(b []byte) error {
 	for len(b) > 0 {
-		num, typ, n := protowire.ConsumeTag(b)
+		num, typ, n := pb.ConsumeTag(b)
 		if n < 0 {
 			return errWire
 		}
@@ -524,7 +564,7 @@ func appendProgress(b []byte, worker int, decided uint64) []byte {
 // parseProgress decodes a progress message.
 func parseProgress(b []byte) (worker int, decided uint64, err error) {
 	for len(b) > 0 {
-		num, typ, n := protowire.ConsumeTag(b)
+		num, typ, n := pb.ConsumeTag(b)
 		if n < 0 {
 			return 0, 0, errWire
 		}

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"io/fs"
+	"math"
 	"slices"
 	"sync"
 	"testing"
@@ -72,62 +73,69 @@ func sampleEvents(tb testing.TB, n, per, muonEvery int) [][]byte {
 	return out
 }
 
-// referenceTowers decodes a batch with proto.Unmarshal and FillEvent, the
-// reference path, and returns each event's towers; ok is false when proto
-// refuses the bytes.
-func referenceTowers(g *detector.Geometry, data []byte) ([][]trigger.Tower, bool) {
+// referenceEvents decodes a batch with proto.Unmarshal and FillEvent, the
+// reference path; ok is false when proto refuses the bytes.
+func referenceEvents(g *detector.Geometry, data []byte) ([]trigger.Event, bool) {
 	var b pb.EventBatch
 	if proto.Unmarshal(data, &b) != nil {
 		return nil, false
 	}
-	var out [][]trigger.Tower
+	var out []trigger.Event
 	for _, be := range b.Events {
 		var ev trigger.Event
 		FillEvent(g, be.Fragments, be.LumiSlice, &ev)
-		out = append(out, ev.Towers)
+		out = append(out, ev)
 	}
 	return out, true
 }
 
-// wireTowers decodes a batch on the wire path; events that need the
-// reference path are reported as nil.
-func wireTowers(t *testing.T, g *detector.Geometry, data []byte) ([][]trigger.Tower, []uint32, error) {
-	tab := newTowerTable(g)
+// wireEvents decodes a batch on the wire path; events it leaves to the
+// reference path are nil.
+func wireEvents(tab *towerTable, data []byte) ([]*trigger.Event, error) {
 	var we wireEvent
 	var sc wireFill
-	var out [][]trigger.Tower
-	var lumis []uint32
+	var out []*trigger.Event
 	_, err := walkBatch(data, func(raw []byte) error {
 		if err := we.decode(raw); err != nil {
 			return err
 		}
-		var ev trigger.Event
-		ok, err := tab.fillWire(we.frags, we.lumi, &ev, &sc)
+		ev := &trigger.Event{}
+		ok, err := tab.fillWire(we.frags, we.lumi, ev, &sc)
 		if err != nil {
 			return err
 		}
 		if !ok {
-			out = append(out, nil)
-		} else {
-			out = append(out, slices.Clone(ev.Towers))
+			ev = nil
 		}
-		lumis = append(lumis, we.lumi)
+		out = append(out, ev)
 		return nil
 	})
-	return out, lumis, err
+	return out, err
 }
 
-// The wire path gives exactly FillEvent's towers (FillEvent after
-// proto.Unmarshal, google.golang.org/protobuf's reference decoder, is the
-// reference) for every event.
+// sameEvent reports whether the wire path's event equals the reference's
+// (an empty slice and a nil one are the same; hit coordinates compare by
+// their bits, so that NaN equals NaN).
+func sameEvent(got *trigger.Event, want trigger.Event) bool {
+	sameHit := func(a, b trigger.MuonHit) bool {
+		bits := math.Float64bits
+		return a.Station == b.Station && bits(a.X) == bits(b.X) && bits(a.Y) == bits(b.Y) && bits(a.Z) == bits(b.Z)
+	}
+	return got.LumiSlice == want.LumiSlice && slices.Equal(got.Towers, want.Towers) && slices.EqualFunc(got.MuonHits, want.MuonHits, sameHit)
+}
+
+// The wire path gives exactly FillEvent's towers and muon hits (FillEvent
+// after proto.Unmarshal, google.golang.org/protobuf's reference decoder,
+// is the reference) for every event.
 func TestFillWireMatchesFillEvent(t *testing.T) {
 	g := detector.Lantern()
+	hits := 0
 	for _, data := range sampleEvents(t, 400, 64, 3) {
-		want, ok := referenceTowers(g, data)
+		want, ok := referenceEvents(g, data)
 		if !ok {
 			t.Fatal("proto refuses the sample")
 		}
-		got, _, err := wireTowers(t, g, data)
+		got, err := wireEvents(newTowerTable(g), data)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -135,26 +143,33 @@ func TestFillWireMatchesFillEvent(t *testing.T) {
 			t.Fatalf("%d events, want %d", len(got), len(want))
 		}
 		for i := range want {
-			if len(want[i]) == 0 {
+			if len(want[i].Towers) == 0 {
 				t.Fatalf("event %d has no towers: the sample does not exercise the decoder", i)
 			}
 			if got[i] == nil {
-				continue // a muon fragment: the reference path, checked below
+				t.Fatalf("event %d left to the reference path", i)
 			}
-			if !slices.Equal(got[i], want[i]) {
-				t.Fatalf("event %d: towers differ\n got %v\nwant %v", i, got[i], want[i])
+			if !sameEvent(got[i], want[i]) {
+				t.Fatalf("event %d differs\n got %+v\nwant %+v", i, *got[i], want[i])
 			}
+			hits += len(want[i].MuonHits)
 		}
+	}
+	if hits == 0 {
+		t.Fatal("no muon hits: the sample does not exercise the muon decoder")
 	}
 }
 
 // Fragment layouts other than the builder's own decode with proto's
-// meaning; a muon payload sends the event to the reference path.
+// meaning, or go to the reference path.
 func TestFillWireOtherLayouts(t *testing.T) {
 	g := detector.Lantern()
 	tag := protowire.AppendTag
 	field := func(num protowire.Number, x uint64) []byte {
 		return protowire.AppendVarint(tag(nil, num, protowire.VarintType), x)
+	}
+	fixed := func(num protowire.Number, x float32) []byte {
+		return protowire.AppendFixed32(tag(nil, num, protowire.Fixed32Type), math.Float32bits(x))
 	}
 	bytesField := func(num protowire.Number, x []byte) []byte {
 		return protowire.AppendBytes(tag(nil, num, protowire.BytesType), x)
@@ -168,43 +183,49 @@ func TestFillWireOtherLayouts(t *testing.T) {
 	}
 	cat := func(parts ...[]byte) []byte { return slices.Concat(parts...) }
 	calo := cat(bytesField(1, packed(5, 300, 7, 99999)), bytesField(2, packed(4, 0, 70000)))
+	hit := cat(field(1, 2), fixed(2, -1.5), fixed(3, 1e6), fixed(4, float32(math.Copysign(0, -1))))
 	cases := map[string]struct {
-		frag  []byte
-		plain bool
+		frag []byte
+		wire bool // decoded on the wire path, not left to the reference
 	}{
-		"canonical":      {cat(field(1, 2), bytesField(7, calo), field(9, 5)), true},
-		"unpacked":       {cat(bytesField(7, cat(field(1, 5), field(2, 9), field(1, 6), field(2, 3)))), true},
-		"calo twice":     {cat(bytesField(7, calo), bytesField(7, cat(bytesField(1, packed(8)), bytesField(2, packed(2))))), true},
-		"unknown fields": {cat(field(12, 1), bytesField(7, cat(field(9, 1), calo)), bytesField(13, []byte("z"))), true},
-		"wrong type":     {cat(field(7, 1), bytesField(7, calo)), true},
-		"more counts":    {cat(bytesField(7, cat(bytesField(1, packed(1)), bytesField(2, packed(3, 4, 5))))), true},
-		"muon":           {cat(bytesField(8, bytesField(1, field(1, 1)))), false},
-		"calo then muon": {cat(bytesField(7, calo), bytesField(8, nil)), false},
+		"canonical":        {cat(field(1, 2), bytesField(7, calo), field(9, 5)), true},
+		"unpacked":         {cat(bytesField(7, cat(field(1, 5), field(2, 9), field(1, 6), field(2, 3)))), true},
+		"calo twice":       {cat(bytesField(7, calo), bytesField(7, cat(bytesField(1, packed(8)), bytesField(2, packed(2))))), true},
+		"unknown fields":   {cat(field(12, 1), bytesField(7, cat(field(9, 1), calo)), bytesField(13, []byte("z"))), true},
+		"wrong type":       {cat(field(7, 1), bytesField(7, calo)), true},
+		"more counts":      {cat(bytesField(7, cat(bytesField(1, packed(1)), bytesField(2, packed(3, 4, 5))))), true},
+		"muon":             {cat(field(1, 17), bytesField(8, cat(bytesField(1, hit), bytesField(1, nil), bytesField(1, field(1, 3))))), true},
+		"empty muon":       {cat(bytesField(8, nil)), true},
+		"muon, station x2": {cat(bytesField(8, bytesField(1, cat(field(1, 2), field(1, 4))))), true},
+		"muon, odd hit":    {cat(bytesField(8, bytesField(1, cat(field(1, 2), field(9, 4))))), false},
+		"calo then muon":   {cat(bytesField(7, calo), bytesField(8, bytesField(1, hit))), false},
+		"muon then calo":   {cat(bytesField(8, bytesField(1, hit)), bytesField(7, calo)), false},
+		"muon wrong type":  {cat(field(8, 1), bytesField(7, calo)), true},
 	}
 	for name, c := range cases {
 		t.Run(name, func(t *testing.T) {
 			ev := cat(field(1, 1), field(5, 3), bytesField(6, c.frag), bytesField(6, c.frag))
 			data := cat(field(1, 0), bytesField(3, ev), bytesField(15, nil), bytesField(3, ev))
-			want, ok := referenceTowers(g, data)
+			want, ok := referenceEvents(g, data)
 			if !ok {
 				t.Fatal("proto refuses the case")
 			}
-			got, lumis, err := wireTowers(t, g, data)
+			got, err := wireEvents(newTowerTable(g), data)
 			if err != nil {
 				t.Fatal(err)
 			}
 			for i := range want {
-				if lumis[i] != 3 {
-					t.Fatalf("lumi slice %d, want 3", lumis[i])
-				}
-				if !c.plain {
-					if got[i] != nil {
-						t.Fatal("a muon payload must take the reference path")
+				if got[i] == nil {
+					if c.wire {
+						t.Fatal("left to the reference path")
 					}
 					continue
 				}
-				if !slices.Equal(got[i], want[i]) {
-					t.Fatalf("towers differ\n got %v\nwant %v", got[i], want[i])
+				if !c.wire {
+					t.Fatal("decoded on the wire path, want the reference path")
+				}
+				if !sameEvent(got[i], want[i]) || got[i].LumiSlice != 3 {
+					t.Fatalf("event differs\n got %+v\nwant %+v", *got[i], want[i])
 				}
 			}
 		})
@@ -269,15 +290,16 @@ func TestSlabMatchesProto(t *testing.T) {
 }
 
 // FuzzFillWire: whatever proto decodes, the wire path decodes to the same
-// towers (or hands to the reference path); it never panics.
+// event (or leaves to the reference path); it never panics.
 func FuzzFillWire(f *testing.F) {
-	for _, data := range sampleEvents(f, 8, 2, 3) {
+	for _, data := range sampleEvents(f, 6, 1, 3) {
 		f.Add(data)
 	}
 	g := detector.Lantern()
+	tab := newTowerTable(g)
 	f.Fuzz(func(t *testing.T, data []byte) {
-		want, ok := referenceTowers(g, data)
-		got, _, err := wireTowers(t, g, data)
+		want, ok := referenceEvents(g, data)
+		got, err := wireEvents(tab, data)
 		if !ok {
 			return
 		}
@@ -285,8 +307,8 @@ func FuzzFillWire(f *testing.F) {
 			t.Fatalf("proto decodes the batch, the wire path fails: %v", err)
 		}
 		for i := range want {
-			if got[i] != nil && !slices.Equal(got[i], want[i]) {
-				t.Fatalf("event %d: towers differ", i)
+			if got[i] != nil && !sameEvent(got[i], want[i]) {
+				t.Fatalf("event %d differs", i)
 			}
 		}
 	})

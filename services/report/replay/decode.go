@@ -95,7 +95,7 @@ func decodeBatch(data []byte, pool *fragmentPool, out []*pb.Fragment) ([]*pb.Fra
 		return out[:start], batchInfo{}, fmt.Errorf("%w: %s", errBadBatch, what)
 	}
 	for len(data) > 0 {
-		num, typ, n := protowire.ConsumeTag(data)
+		num, typ, n := pb.ConsumeTag(data)
 		if n < 0 {
 			return fail("bad tag")
 		}
@@ -144,7 +144,7 @@ func decodeFragment(data []byte, s *slot) error {
 	f.SourceId, f.Run, f.Orbit, f.Bcid, f.TimestampNs, f.Status, f.Checksum = 0, 0, 0, 0, 0, 0, 0
 	f.Payload = nil
 	for len(data) > 0 {
-		num, typ, n := protowire.ConsumeTag(data)
+		num, typ, n := pb.ConsumeTag(data)
 		if n < 0 {
 			return errors.New("bad tag in fragment")
 		}
@@ -216,7 +216,7 @@ func decodeFragment(data []byte, s *slot) error {
 // not.
 func decodeCalo(data []byte, c *pb.CaloPayload) error {
 	for len(data) > 0 {
-		num, typ, n := protowire.ConsumeTag(data)
+		num, typ, n := pb.ConsumeTag(data)
 		if n < 0 {
 			return errors.New("bad tag in calorimeter payload")
 		}
@@ -307,7 +307,7 @@ func countTerminators(b []byte) int {
 // decodeMuon appends the hits of a MuonPayload to s.
 func decodeMuon(data []byte, s *slot) error {
 	for len(data) > 0 {
-		num, typ, n := protowire.ConsumeTag(data)
+		num, typ, n := pb.ConsumeTag(data)
 		if n < 0 {
 			return errors.New("bad tag in muon payload")
 		}
@@ -327,7 +327,7 @@ func decodeMuon(data []byte, s *slot) error {
 		data = data[n:]
 		var h pb.MuonHit
 		for len(b) > 0 {
-			hn, ht, k := protowire.ConsumeTag(b)
+			hn, ht, k := pb.ConsumeTag(b)
 			if k < 0 {
 				return errors.New("bad tag in muon hit")
 			}
