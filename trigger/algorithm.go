@@ -52,8 +52,8 @@ type Input struct {
 	// Grid is the tower grid, and the solenoid field, of the
 	// FeatureConfig.
 	Grid Grid
-	// Selected holds the indices in Event.Towers of the towers that pass
-	// the tower selection, in input order.
+	// Selected holds the indices of the towers that pass the tower
+	// selection, in input order: Event.TowerAt(i, Grid) is tower i.
 	Selected []int32
 	// Cells holds, per grid cell ieta*PhiBins+iphi, the summed E_T of both
 	// layers of the selected towers on the grid. It has Grid.Cells()

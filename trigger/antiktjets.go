@@ -194,9 +194,8 @@ func (f *AntiKtFinder) Run(in *Input, out *Output) {
 	cut := f.cfg.InputMinET
 	if f.cfg.Towers {
 		ak.begin(len(in.Selected))
-		towers := in.Event.Towers
 		for _, i := range in.Selected {
-			t := &towers[i]
+			t := in.Event.TowerAt(int(i), in.Grid)
 			if !(t.ET > 0) || t.ET < cut {
 				continue
 			}

@@ -36,7 +36,7 @@ func starterSelector(b *testing.B) *Selector {
 func towersPerEvent(evs []*Event) float64 {
 	n := 0
 	for _, ev := range evs {
-		n += len(ev.Towers)
+		n += ev.NumTowers()
 	}
 	return float64(n) / float64(len(evs))
 }
@@ -191,15 +191,31 @@ func physicsSelector(b *testing.B) *Selector {
 // BenchmarkPhysicsMenu decides events with the ~60-rule example menu, every
 // feature computed (anti-kt R = 0.4 and R = 1.0 jets, window jets, EM
 // clusters, muon candidates, narrow clusters), on one goroutine.
+//
+// The towers come in both forms: "grid", as GridTowers, the form the
+// selection service and the replay fill from the readout's payloads, and
+// "towers", as Tower structs.
 func BenchmarkPhysicsMenu(b *testing.B) {
 	s := physicsSelector(b)
+	g := lanternGrid()
 	for _, set := range physicsBenchSets(b) {
-		b.Run(set.name, func(b *testing.B) {
-			var d Decision
-			b.ReportAllocs()
-			measureEvents(b, func(i int) { s.Decide(set.evs[i%len(set.evs)], &d) })
-			b.ReportMetric(towersPerEvent(set.evs), "towers/event")
-		})
+		grid := make([]*Event, len(set.evs))
+		for i, ev := range set.evs {
+			if grid[i] = toGridTowers(ev, g); len(grid[i].Towers) != 0 {
+				b.Fatalf("%s event %d: %d towers off their cell centres", set.name, i, len(grid[i].Towers))
+			}
+		}
+		for _, form := range []struct {
+			name string
+			evs  []*Event
+		}{{"grid", grid}, {"towers", set.evs}} {
+			b.Run(set.name+"/"+form.name, func(b *testing.B) {
+				var d Decision
+				b.ReportAllocs()
+				measureEvents(b, func(i int) { s.Decide(form.evs[i%len(form.evs)], &d) })
+				b.ReportMetric(towersPerEvent(form.evs), "towers/event")
+			})
+		}
 	}
 }
 

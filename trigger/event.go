@@ -98,11 +98,45 @@ type MuonHit struct {
 	X, Y, Z float64
 }
 
+// GridTower is a tower at the centre of a cell of the grid: the compact
+// form of Tower that services fed by the readout fill, 16 bytes against
+// Tower's 48, with no direction to carry. It stands for
+//
+//	Tower{Layer: Layer, IEta: int(IEta), IPhi: int(IPhi),
+//		Eta: grid.EtaCentre(int(IEta)), Phi: grid.PhiCentre(int(IPhi)), ET: ET}
+//
+// where grid is the FeatureConfig's Grid, and the features of an event are
+// the same whichever form its towers take (TestGridTowersMatchTowers). A
+// GridTower outside the grid is the Tower above too: it counts towards MET
+// and sum ET where its extrapolated direction is finite, and is off the
+// grid.
+type GridTower struct {
+	ET         float64
+	IEta, IPhi uint16
+	Layer      uint8
+}
+
 // Event is what the selection sees of one bunch crossing: the calorimeter
 // towers, the muon-station hits and the lumi slice the crossing belongs
-// to.
+// to. The towers are Towers followed by GridTowers, in that order; either
+// may be empty.
 type Event struct {
-	Towers    []Tower
-	MuonHits  []MuonHit
-	LumiSlice uint32
+	Towers     []Tower
+	GridTowers []GridTower
+	MuonHits   []MuonHit
+	LumiSlice  uint32
+}
+
+// NumTowers returns the number of towers of both forms.
+func (ev *Event) NumTowers() int { return len(ev.Towers) + len(ev.GridTowers) }
+
+// TowerAt returns tower i of the event, counting Towers first and then
+// GridTowers, as a Tower with the direction of grid g. It panics if i is
+// out of range.
+func (ev *Event) TowerAt(i int, g Grid) Tower {
+	if i < len(ev.Towers) {
+		return ev.Towers[i]
+	}
+	t := &ev.GridTowers[i-len(ev.Towers)]
+	return Tower{Layer: t.Layer, IEta: int(t.IEta), IPhi: int(t.IPhi), Eta: g.EtaCentre(int(t.IEta)), Phi: g.PhiCentre(int(t.IPhi)), ET: t.ET}
 }

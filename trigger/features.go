@@ -74,6 +74,10 @@ type Features struct {
 	// phiTab holds the centre of each phi column of the grid and its sine
 	// and cosine, the same values math.Sincos gives.
 	phiTab []phiColumn
+	// rowOK says per eta row whether GridTowers there pass the |eta|
+	// range; rowsFor is the grid and range it was made for.
+	rowOK   []bool
+	rowsFor rowKey
 }
 
 // phiColumn is the direction of one phi column, kept together so that one
@@ -91,6 +95,31 @@ func (f *Features) phiTable(g Grid, valid bool) {
 		s, co := math.Sincos(c)
 		f.phiTab[i] = phiColumn{c, s, co}
 	}
+}
+
+// etaRows returns, per eta row of g, whether the |eta| of its centre lies
+// in [etaMin, etaMax], as the tower selection tests a Tower there. The
+// table is kept for the next event with the same grid and range.
+func (f *Features) etaRows(g Grid, valid bool, etaMin, etaMax float64) []bool {
+	if !valid {
+		return nil
+	}
+	if f.rowOK != nil && f.rowsFor == (rowKey{g, etaMin, etaMax}) {
+		return f.rowOK
+	}
+	f.rowOK = make([]bool, g.EtaBins)
+	for i := range f.rowOK {
+		a := math.Abs(g.EtaCentre(i))
+		f.rowOK[i] = a >= etaMin && a <= etaMax
+	}
+	f.rowsFor = rowKey{g, etaMin, etaMax}
+	return f.rowOK
+}
+
+// rowKey is what a table of eta rows was made for.
+type rowKey struct {
+	g              Grid
+	etaMin, etaMax float64
 }
 
 // Collection returns the collection called name, or nil.
@@ -239,10 +268,12 @@ func computeFeatures(ev *Event, cfg *FeatureConfig, f *Features) {
 	phiTab := f.phiTab
 	towers := ev.Towers
 	// Room for every tower and cell up front, so that the loop stores
-	// without checking capacity.
+	// without checking capacity. The cell lists get one slot more than
+	// there are cells: the loop stores before it knows whether to count,
+	// so a tower arriving when every cell is listed writes one past them.
 	selected := slices.Grow(in.Selected[:0], len(towers))[:len(towers)]
-	touched := slices.Grow(in.Touched[:0], cells)[:cells]
-	hot := slices.Grow(in.Hot[:0], cells)[:cells]
+	touched := slices.Grow(in.Touched[:0], cells+1)[:cells+1]
+	hot := slices.Grow(in.Hot[:0], cells+1)[:cells+1]
 	nsel, ntouch, nhot := 0, 0, 0
 	for i := range towers {
 		t := &towers[i]
@@ -294,6 +325,67 @@ func computeFeatures(ev *Event, cfg *FeatureConfig, f *Features) {
 		}
 		if layers && t.Layer == 0 {
 			em[c] += et
+		}
+	}
+	// The towers of grid cells: the same steps as above, with the
+	// direction and the |eta| range looked up per column and row. Those
+	// outside the grid take the steps above with their extrapolated
+	// direction.
+	if gts := ev.GridTowers; len(gts) > 0 {
+		rowOK := f.etaRows(g, cells > 0, etaMin, etaMax)
+		selected = slices.Grow(selected[:nsel], len(gts))[:nsel+len(gts)]
+		base := int32(len(towers))
+		for k := range gts {
+			t := &gts[k]
+			et := t.ET
+			ieta, iphi := uint(t.IEta), uint(t.IPhi)
+			if ieta >= neta || iphi >= nphi {
+				eta, phi := g.EtaCentre(int(ieta)), g.PhiCentre(int(iphi))
+				if a := math.Abs(eta); !(et >= lo && et <= math.MaxFloat64 && a >= etaMin && a <= etaMax) || !finite(phi) {
+					if !finite(et) || !finite(eta) || !finite(phi) {
+						bad++
+					}
+					continue
+				}
+				sin, cos := math.Sincos(phi)
+				sx += et * cos
+				sy += et * sin
+				sum += et
+				selected[nsel] = base + int32(k)
+				nsel++
+				offGrid++
+				continue
+			}
+			if !(et >= lo && et <= math.MaxFloat64) || !rowOK[ieta] {
+				if !finite(et) {
+					bad++
+				}
+				continue
+			}
+			pc := &phiTab[iphi]
+			sx += et * pc.cos
+			sy += et * pc.sin
+			sum += et
+			selected[nsel] = base + int32(k)
+			nsel++
+			if et == 0 {
+				continue
+			}
+			c := ieta*nphi + iphi
+			old := cellsV[c]
+			touched[ntouch] = int32(c)
+			if old == 0 {
+				ntouch++
+			}
+			nv := old + et
+			cellsV[c] = nv
+			hot[nhot] = int32(c)
+			if nv >= hotCut && (old < hotCut || old == 0) {
+				nhot++
+			}
+			if layers && t.Layer == 0 {
+				em[c] += et
+			}
 		}
 	}
 	selected, touched, hot = selected[:nsel], touched[:ntouch], hot[:nhot]
