@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
+	"fmt"
 	"os"
 	"path/filepath"
 	"strings"
@@ -56,6 +57,16 @@ func TestSeparateServicesMatchUp(t *testing.T) {
 		t.Fatalf("up: exit %d: %s", code, stderr)
 	}
 	up := readSummary(t, upJSON)
+	t.Run("one selection worker", func(t *testing.T) { separateServices(t, up, crossings, seed, 1) })
+	t.Run("two selection workers", func(t *testing.T) { separateServices(t, up, crossings, seed, 2) })
+}
+
+// separateServices runs readout, build and workers x select against one
+// server and compares their summaries with up's. With several workers the
+// events and passes add up to up's exactly; each worker prescales its own
+// share, so a rule's kept count may differ by less than one per worker.
+func separateServices(t *testing.T, up summary.Summary, crossings, seed string, workers int) {
+	dir := t.TempDir()
 
 	srv, err := transport.Embedded("127.0.0.1", -1)
 	if err != nil {
@@ -81,11 +92,22 @@ func TestSeparateServicesMatchUp(t *testing.T) {
 			}
 		}()
 	}
-	selJSON, buildJSON := filepath.Join(dir, "select.json"), filepath.Join(dir, "build.json")
-	start("select", "select", "--nats", url, "--summary-json", selJSON)
+	buildJSON := filepath.Join(dir, "build.json")
+	var selJSON []string
+	for w := range workers {
+		selJSON = append(selJSON, filepath.Join(dir, fmt.Sprintf("select-%d.json", w)))
+		start(fmt.Sprint("select ", w), "select", "--nats", url, "--summary-json", selJSON[w],
+			"--worker", fmt.Sprint(w), "--workers", fmt.Sprint(workers))
+	}
 	start("build", "build", "--nats", url, "--summary-json", buildJSON)
+	// The builder subscribes once; a worker once, or three times when it
+	// shares the events (events, end of run, the others' progress).
+	subs := uint32(1 + 1)
+	if workers > 1 {
+		subs = uint32(1 + 3*workers)
+	}
 	deadline := time.Now().Add(10 * time.Second)
-	for srv.NumSubscriptions() < base+2 {
+	for srv.NumSubscriptions() < base+subs {
 		if time.Now().After(deadline) {
 			t.Fatal("builder and selection did not subscribe")
 		}
@@ -96,20 +118,43 @@ func TestSeparateServicesMatchUp(t *testing.T) {
 	if t.Failed() {
 		return
 	}
-	sel, build := readSummary(t, selJSON), readSummary(t, buildJSON)
+	build := readSummary(t, buildJSON)
 	if build.EventsBuilt != up.EventsBuilt || build.Fragments != up.Fragments {
 		t.Errorf("builder: %d events %+v; up: %d events %+v", build.EventsBuilt, build.Fragments, up.EventsBuilt, up.Fragments)
 	}
-	if sel.EventsDecided != up.EventsDecided || sel.Accepted != up.Accepted || sel.MenuHash != up.MenuHash {
-		t.Errorf("select decided %d accepted %d (%s); up decided %d accepted %d (%s)",
-			sel.EventsDecided, sel.Accepted, sel.MenuHash, up.EventsDecided, up.Accepted, up.MenuHash)
+	var decided, accepted uint64
+	rules := make([]summary.Rule, len(up.Rules))
+	for w, file := range selJSON {
+		sel := readSummary(t, file)
+		if sel.MenuHash != up.MenuHash || len(sel.Rules) != len(up.Rules) {
+			t.Fatalf("select %d: menu %s with %d rules; up %s with %d", w, sel.MenuHash, len(sel.Rules), up.MenuHash, len(up.Rules))
+		}
+		if workers > 1 && sel.EventsDecided == 0 {
+			t.Errorf("select %d decided nothing", w)
+		}
+		decided += sel.EventsDecided
+		accepted += sel.Accepted
+		for i, r := range sel.Rules {
+			rules[i].Name, rules[i].Prescale = r.Name, r.Prescale
+			rules[i].Passed += r.Passed
+			rules[i].Accepted += r.Accepted
+		}
 	}
-	if len(sel.Rules) != len(up.Rules) {
-		t.Fatalf("select has %d rules, up %d", len(sel.Rules), len(up.Rules))
+	if decided != up.EventsDecided {
+		t.Errorf("select decided %d; up decided %d", decided, up.EventsDecided)
 	}
-	for i := range sel.Rules {
-		if sel.Rules[i] != up.Rules[i] {
-			t.Errorf("rule %d: separate %+v, up %+v", i, sel.Rules[i], up.Rules[i])
+	if workers == 1 && accepted != up.Accepted {
+		t.Errorf("select accepted %d; up accepted %d", accepted, up.Accepted)
+	}
+	for i, r := range rules {
+		u := up.Rules[i]
+		if r.Name != u.Name || r.Prescale != u.Prescale || r.Passed != u.Passed {
+			t.Errorf("rule %d: separate %+v, up %+v", i, r, u)
+		}
+		// floor(a/P) + floor(b/P) is floor((a+b)/P) or one less per
+		// further worker.
+		if r.Accepted > u.Accepted || u.Accepted-r.Accepted >= uint64(workers) {
+			t.Errorf("rule %s: kept %d by %d workers, %d by up", r.Name, r.Accepted, workers, u.Accepted)
 		}
 	}
 }
@@ -144,6 +189,8 @@ func TestBadInputGivesOneLineError(t *testing.T) {
 		{[]string{"select", "--nats", "nats://127.0.0.1:1"}, "127.0.0.1:1"},
 		{[]string{"readout", "--nats", "nats://127.0.0.1:1", "--crossings", "10"}, "127.0.0.1:1"},
 		{[]string{"build", "--instance", "2", "--builders", "2"}, "--instance"},
+		{[]string{"select", "--worker", "2", "--workers", "2"}, "--worker"},
+		{[]string{"select", "--workers", "0"}, "--worker"},
 		{[]string{"menu"}, "menu check"},
 		{[]string{"menu", "check"}, "FILE"},
 		{[]string{"menu", "check", unreadable}, "no-such-menu.yaml"},

@@ -273,6 +273,8 @@ func runSelect(ctx context.Context, e *env, args []string) error {
 	fs.StringVar(&rf.menu, "menu", "", "menu `FILE` (default: the built-in examples/menus/starter.yaml)")
 	url := fs.String("nats", defaultNATS, "NATS server `URL`")
 	builders := fs.Int("builders", 1, "number of builder instances feeding the selection")
+	workers := fs.Int("workers", 1, "number of selection workers sharing the events (each a separate process with its own --worker)")
+	worker := fs.Int("worker", 0, "this worker's number, 0 .. workers-1")
 	if err := parse(fs, args, 0); err != nil {
 		return err
 	}
@@ -282,6 +284,9 @@ func runSelect(ctx context.Context, e *env, args []string) error {
 	}
 	if *builders < 1 {
 		return usagef("--builders %d: want >= 1", *builders)
+	}
+	if *workers < 1 || *worker < 0 || *worker >= *workers {
+		return usagef("--worker %d of --workers %d: want 0 <= worker < workers", *worker, *workers)
 	}
 	desc, err := cfg.LoadDetector()
 	if err != nil {
@@ -297,7 +302,7 @@ func runSelect(ctx context.Context, e *env, args []string) error {
 	}
 	defer nc.Close()
 	reg := newRegistry()
-	sel, err := selector.New(selector.Config{Menu: menu, Geometry: desc.Geometry, Builders: *builders, Subjects: cfg.Subjects()}, nc, reg)
+	sel, err := selector.New(selector.Config{Menu: menu, Geometry: desc.Geometry, Builders: *builders, Worker: *worker, Workers: *workers, Subjects: cfg.Subjects()}, nc, reg)
 	if err != nil {
 		return err
 	}
