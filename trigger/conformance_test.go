@@ -56,6 +56,14 @@ func checkAlgorithm(t *testing.T, alg Algorithm, g Grid) {
 			}
 		}
 	}
+	// The same events with their cell-centred towers as GridTowers, the
+	// form the services fill, give the same objects.
+	for i, ev := range events {
+		var f Features
+		if got := run(&f, toGridTowers(ev, g)); !slices.Equal(got, want[i]) {
+			t.Fatalf("event %d as grid towers: %v, as towers %v", i, got, want[i])
+		}
+	}
 	// A reused Features, the same Output run twice, and the Input left as
 	// it was given.
 	var f Features

@@ -30,7 +30,7 @@ func (a *towerObjects) Run(in *Input, out *Output) {
 	}
 	*buf = (*buf)[:0]
 	for _, i := range in.Selected {
-		if t := in.Event.Towers[i]; t.ET >= a.minPT {
+		if t := in.Event.TowerAt(int(i), in.Grid); t.ET >= a.minPT {
 			*buf = append(*buf, t)
 		}
 	}
