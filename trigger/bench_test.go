@@ -270,18 +270,27 @@ func measureEvents(b *testing.B, step func(i int)) (int, time.Duration, time.Dur
 func BenchmarkTowerSelection(b *testing.B) {
 	evs, _ := physicsEvents(b, 64, 60, "", 11)
 	g := lanternGrid()
+	grid := make([]*Event, len(evs))
+	for i, ev := range evs {
+		grid[i] = toGridTowers(ev, g)
+	}
 	em, _ := NewEMClusterFinder(EMClusterConfig{Seed: 1e6})
 	for _, c := range []struct {
 		name  string
 		colls []CollectionConfig
 	}{{"plain", nil}, {"layers+hot", []CollectionConfig{{Name: "ems", Algorithm: em}}}} {
-		b.Run(c.name, func(b *testing.B) {
-			cfg := FeatureConfig{Grid: g, NoiseCut: 0.5, EtaMax: 4, Collections: c.colls}
-			var f Features
-			b.ReportAllocs()
-			measureEvents(b, func(i int) { computeFeatures(evs[i%len(evs)], &cfg, &f) })
-			b.ReportMetric(towersPerEvent(evs), "towers/event")
-		})
+		for _, form := range []struct {
+			name string
+			evs  []*Event
+		}{{"grid", grid}, {"towers", evs}} {
+			b.Run(c.name+"/"+form.name, func(b *testing.B) {
+				cfg := FeatureConfig{Grid: g, NoiseCut: 0.5, EtaMax: 4, Collections: c.colls}
+				var f Features
+				b.ReportAllocs()
+				measureEvents(b, func(i int) { computeFeatures(form.evs[i%len(form.evs)], &cfg, &f) })
+				b.ReportMetric(towersPerEvent(form.evs), "towers/event")
+			})
+		}
 	}
 }
 
