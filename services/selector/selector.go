@@ -486,13 +486,17 @@ func (s *Selector) fillEvent(be *pb.BuiltEvent) {
 }
 
 // FillEvent decodes the payloads of fragments into ev, reusing its
-// storage: calorimeter towers (ET from least counts, eta and phi at the
-// tower centres of g; towers outside the grid or with zero counts are
-// skipped) and muon-station hits (mm).
+// storage: calorimeter towers and muon-station hits (mm). The towers are
+// trigger.GridTowers (ET from least counts, at their cell of g), or, for a
+// geometry whose bins do not fit a GridTower, Towers with eta and phi at
+// the tower centres of g; towers outside the grid or with zero counts are
+// skipped. Either form gives the features of the Towers at the centres.
 func FillEvent(g *detector.Geometry, fragments []*pb.Fragment, lumiSlice uint32, ev *trigger.Event) {
 	ev.Towers = ev.Towers[:0]
+	ev.GridTowers = ev.GridTowers[:0]
 	ev.MuonHits = ev.MuonHits[:0]
 	ev.LumiSlice = lumiSlice
+	grid := gridForm(g)
 	for _, f := range fragments {
 		if m := f.GetMuon(); m != nil {
 			for _, h := range m.Hits {
@@ -509,14 +513,20 @@ func FillEvent(g *detector.Geometry, fragments []*pb.Fragment, lumiSlice uint32,
 			if i >= len(counts) {
 				break
 			}
-			layer, ieta, iphi, ok := g.TowerCoords(int(t))
-			if !ok || counts[i] == 0 {
+			if counts[i] == 0 {
 				continue
 			}
-			ev.Towers = append(ev.Towers, trigger.Tower{
-				Layer: uint8(layer), IEta: ieta, IPhi: iphi,
-				Eta: g.EtaCentre(ieta), Phi: g.PhiCentre(iphi), ET: g.ET(counts[i]),
-			})
+			if !grid {
+				if tw, ok := wideTower(g, t, counts[i]); ok {
+					ev.Towers = append(ev.Towers, tw)
+				}
+				continue
+			}
+			layer, ieta, iphi, ok := g.TowerCoords(int(t))
+			if !ok {
+				continue
+			}
+			ev.GridTowers = append(ev.GridTowers, trigger.GridTower{ET: g.ET(counts[i]), IEta: uint16(ieta), IPhi: uint16(iphi), Layer: uint8(layer)})
 		}
 	}
 }

@@ -170,58 +170,67 @@ func (we *wireEvent) decode(b []byte) error {
 	return nil
 }
 
-// towerTable holds each tower's layer and bins, packed in a uint32 so the
-// table of a whole calorimeter stays in the processor's cache, and the bin
-// centres, all made once per geometry with the Geometry's own methods, so
-// that a lookup gives bit for bit what FillEvent computes per tower. It is
-// immutable and safe for concurrent use.
+// towerTable holds each tower's grid cell and layer as a trigger.GridTower
+// with no energy, made once per geometry with the Geometry's own methods,
+// so that a lookup gives what FillEvent computes per tower. The table of a
+// whole calorimeter (8 bytes per tower) stays in the processor's cache. It
+// is immutable and safe for concurrent use.
 type towerTable struct {
-	cells      []uint32 // by global tower index: layer<<24 | ieta<<12 | iphi
-	eta, phi   []float64
-	lsb        float64
-	g          *detector.Geometry
-	computeAll bool // bins too many to pack: compute per tower
+	cells []trigger.GridTower // by global tower index; nil when wide
+	lsb   float64
+	g     *detector.Geometry
+	wide  bool // bins beyond a GridTower's range: Towers, computed per tower
 }
 
 func newTowerTable(g *detector.Geometry) *towerTable {
-	t := &towerTable{lsb: g.LeastCountGeV, g: g}
-	if g.EtaBins >= 1<<12 || g.PhiBins >= 1<<12 || detector.Layers >= 1<<8 {
-		t.computeAll = true
+	t := &towerTable{lsb: g.LeastCountGeV, g: g, wide: !gridForm(g)}
+	if t.wide {
 		return t
 	}
-	t.cells = make([]uint32, g.Towers())
+	t.cells = make([]trigger.GridTower, g.Towers())
 	for i := range t.cells {
 		layer, ieta, iphi, _ := g.TowerCoords(i)
-		t.cells[i] = uint32(layer)<<24 | uint32(ieta)<<12 | uint32(iphi)
-	}
-	t.eta = make([]float64, g.EtaBins)
-	for i := range t.eta {
-		t.eta[i] = g.EtaCentre(i)
-	}
-	t.phi = make([]float64, g.PhiBins)
-	for i := range t.phi {
-		t.phi[i] = g.PhiCentre(i)
+		t.cells[i] = trigger.GridTower{IEta: uint16(ieta), IPhi: uint16(iphi), Layer: uint8(layer)}
 	}
 	return t
 }
 
-// tower returns the trigger tower of global index idx with counts c, or
-// false when idx is off the grid.
-func (t *towerTable) tower(idx, c uint32) (trigger.Tower, bool) {
-	if t.computeAll {
-		layer, ieta, iphi, ok := t.g.TowerCoords(int(idx))
-		if !ok {
-			return trigger.Tower{}, false
-		}
-		return trigger.Tower{Layer: uint8(layer), IEta: ieta, IPhi: iphi, Eta: t.g.EtaCentre(ieta), Phi: t.g.PhiCentre(iphi), ET: t.g.ET(c)}, true
-	}
-	if int(idx) >= len(t.cells) {
+// gridForm reports whether every tower of g fits a trigger.GridTower, the
+// form the selection fills: bins and layers within its integer ranges.
+// The GridTower stands for the Tower at its cell centre, and Geometry
+// computes the centres with the formulas trigger.Grid uses (see GridOf),
+// so the two forms give the same features.
+func gridForm(g *detector.Geometry) bool {
+	return g.EtaBins <= math.MaxUint16 && g.PhiBins <= math.MaxUint16 && detector.Layers <= math.MaxUint8+1
+}
+
+// wideTower returns the Tower of global index idx with counts c, as
+// FillEvent makes it for a geometry too large for GridTowers, or false
+// when idx is off the grid.
+func wideTower(g *detector.Geometry, idx, c uint32) (trigger.Tower, bool) {
+	layer, ieta, iphi, ok := g.TowerCoords(int(idx))
+	if !ok {
 		return trigger.Tower{}, false
 	}
-	cell := t.cells[idx]
-	ieta, iphi := int(cell>>12&0xfff), int(cell&0xfff)
-	// float64(counts) * least count, as Geometry.ET computes it.
-	return trigger.Tower{Layer: uint8(cell >> 24), IEta: ieta, IPhi: iphi, Eta: t.eta[ieta], Phi: t.phi[iphi], ET: float64(c) * t.lsb}, true
+	return trigger.Tower{Layer: uint8(layer), IEta: ieta, IPhi: iphi, Eta: g.EtaCentre(ieta), Phi: g.PhiCentre(iphi), ET: g.ET(c)}, true
+}
+
+// add appends the tower of global index idx with counts c (not zero) to
+// out, or to wide for a wide table; towers off the grid are skipped.
+func (t *towerTable) add(out []trigger.GridTower, wide []trigger.Tower, idx, c uint32) ([]trigger.GridTower, []trigger.Tower) {
+	if t.wide {
+		if tw, ok := wideTower(t.g, idx, c); ok {
+			wide = append(wide, tw)
+		}
+		return out, wide
+	}
+	if int(idx) < len(t.cells) {
+		gt := t.cells[idx]
+		// float64(counts) * least count, as Geometry.ET computes it.
+		gt.ET = float64(c) * t.lsb
+		out = append(out, gt)
+	}
+	return out, wide
 }
 
 // wireFill is the scratch of fillWire: one fragment's decoded arrays.
@@ -236,7 +245,7 @@ type wireFill struct {
 // writes it, or given together with another payload). It returns errWire
 // for bytes that are not a protobuf encoding.
 func (t *towerTable) fillWire(frags [][]byte, lumiSlice uint32, ev *trigger.Event, sc *wireFill) (ok bool, err error) {
-	out, hits := ev.Towers[:0], ev.MuonHits[:0]
+	out, wide, hits := ev.GridTowers[:0], ev.Towers[:0], ev.MuonHits[:0]
 	for _, raw := range frags {
 		payload, kind := scanFragment(raw)
 		switch kind {
@@ -249,7 +258,7 @@ func (t *towerTable) fillWire(frags [][]byte, lumiSlice uint32, ev *trigger.Even
 			continue
 		case fragOnePayload:
 			if towers, counts, ok := canonicalCalo(payload); ok {
-				if out, ok = t.appendPairs(out, towers, counts); ok {
+				if out, wide, ok = t.appendPairs(out, wide, towers, counts); ok {
 					continue
 				}
 				return false, errWire
@@ -263,16 +272,12 @@ func (t *towerTable) fillWire(frags [][]byte, lumiSlice uint32, ev *trigger.Even
 		counts := sc.counts
 		towers := sc.towers[:min(len(sc.towers), len(counts))]
 		for i, idx := range towers {
-			c := counts[i]
-			if c == 0 {
-				continue
-			}
-			if tw, ok := t.tower(idx, c); ok {
-				out = append(out, tw)
+			if c := counts[i]; c != 0 {
+				out, wide = t.add(out, wide, idx, c)
 			}
 		}
 	}
-	ev.Towers, ev.MuonHits = out, hits
+	ev.GridTowers, ev.Towers, ev.MuonHits = out, wide, hits
 	ev.LumiSlice = lumiSlice
 	return true, nil
 }
@@ -322,32 +327,29 @@ func appendHits(dst []trigger.MuonHit, b []byte) ([]trigger.MuonHit, bool) {
 // i-th tower index with the i-th count, up to the shorter array, as
 // FillEvent pairs them. The rest of the longer array must still be well
 // formed, or proto would refuse the fragment.
-func (t *towerTable) appendPairs(out []trigger.Tower, towers, counts []byte) ([]trigger.Tower, bool) {
+func (t *towerTable) appendPairs(out []trigger.GridTower, wide []trigger.Tower, towers, counts []byte) ([]trigger.GridTower, []trigger.Tower, bool) {
+	cells, lsb := t.cells, t.lsb
 	for len(towers) > 0 && len(counts) > 0 {
 		idx, n := uvarint32(towers)
 		c, m := uvarint32(counts)
 		if n < 0 || m < 0 {
-			return out, false
+			return out, wide, false
 		}
 		towers, counts = towers[n:], counts[m:]
 		if c == 0 {
 			continue
 		}
-		if t.computeAll {
-			if tw, ok := t.tower(idx, c); ok {
-				out = append(out, tw)
-			}
+		if t.wide {
+			out, wide = t.add(out, wide, idx, c)
 			continue
 		}
-		if int(idx) >= len(t.cells) {
-			continue
+		if int(idx) < len(cells) {
+			gt := cells[idx]
+			gt.ET = float64(c) * lsb
+			out = append(out, gt)
 		}
-		// Built in place: a Tower returned by value costs a copy.
-		cell := t.cells[idx]
-		ieta, iphi := int(cell>>12&0xfff), int(cell&0xfff)
-		out = append(out, trigger.Tower{Layer: uint8(cell >> 24), IEta: ieta, IPhi: iphi, Eta: t.eta[ieta], Phi: t.phi[iphi], ET: float64(c) * t.lsb})
 	}
-	return out, wellFormed(towers) && wellFormed(counts)
+	return out, wide, wellFormed(towers) && wellFormed(counts)
 }
 
 // uvarint32 decodes a varint as uint32 (proto truncates wider values the

@@ -121,7 +121,8 @@ func sameEvent(got *trigger.Event, want trigger.Event) bool {
 		bits := math.Float64bits
 		return a.Station == b.Station && bits(a.X) == bits(b.X) && bits(a.Y) == bits(b.Y) && bits(a.Z) == bits(b.Z)
 	}
-	return got.LumiSlice == want.LumiSlice && slices.Equal(got.Towers, want.Towers) && slices.EqualFunc(got.MuonHits, want.MuonHits, sameHit)
+	return got.LumiSlice == want.LumiSlice && slices.Equal(got.Towers, want.Towers) && slices.Equal(got.GridTowers, want.GridTowers) &&
+		slices.EqualFunc(got.MuonHits, want.MuonHits, sameHit)
 }
 
 // The wire path gives exactly FillEvent's towers and muon hits (FillEvent
@@ -143,8 +144,8 @@ func TestFillWireMatchesFillEvent(t *testing.T) {
 			t.Fatalf("%d events, want %d", len(got), len(want))
 		}
 		for i := range want {
-			if len(want[i].Towers) == 0 {
-				t.Fatalf("event %d has no towers: the sample does not exercise the decoder", i)
+			if len(want[i].GridTowers) == 0 || len(want[i].Towers) != 0 {
+				t.Fatalf("event %d has no grid towers, or plain ones: the sample does not exercise the decoder", i)
 			}
 			if got[i] == nil {
 				t.Fatalf("event %d left to the reference path", i)
@@ -593,4 +594,34 @@ func BenchmarkFill(b *testing.B) {
 		b.ReportMetric(float64(events)/b.Elapsed().Seconds(), "events/s")
 		b.ReportMetric(float64((cpuTime()-c0).Nanoseconds())/1e3/float64(events), "cpu-us/event")
 	})
+}
+
+// The selection fills GridTowers, which stand for Towers at the centres
+// of trigger.Grid's cells: the geometry's tower centres must be those
+// centres bit for bit, or the features would move. Both compute
+// -EtaMax + (i+0.5)*EtaStep and -pi + (i+0.5)*2pi/PhiBins; this holds them
+// to it for the default geometry.
+func TestGridCentresAreGeometryCentres(t *testing.T) {
+	g := detector.Lantern()
+	grid := GridOf(g)
+	if !gridForm(g) {
+		t.Fatal("the default geometry does not fit GridTowers")
+	}
+	for i := range g.EtaBins {
+		if a, b := grid.EtaCentre(i), g.EtaCentre(i); math.Float64bits(a) != math.Float64bits(b) {
+			t.Fatalf("eta row %d: grid centre %v, geometry %v", i, a, b)
+		}
+	}
+	for i := range g.PhiBins {
+		if a, b := grid.PhiCentre(i), g.PhiCentre(i); math.Float64bits(a) != math.Float64bits(b) {
+			t.Fatalf("phi column %d: grid centre %v, geometry %v", i, a, b)
+		}
+	}
+	// And a tower read back as the Tower it stands for has the geometry's
+	// own coordinates.
+	ev := trigger.Event{GridTowers: []trigger.GridTower{{ET: 3, IEta: 17, IPhi: 40, Layer: 1}}}
+	tw := ev.TowerAt(0, grid)
+	if tw.Eta != g.EtaCentre(17) || tw.Phi != g.PhiCentre(40) || tw.IEta != 17 || tw.IPhi != 40 || tw.Layer != 1 || tw.ET != 3 {
+		t.Fatalf("tower %+v", tw)
+	}
 }
