@@ -146,6 +146,36 @@ func New(cfg Config, emit func(*Event)) (*Builder, error) {
 // Add also runs dead-source detection at arrivalNs, as Advance does.
 // Add(nil) returns an error wrapping ErrMalformed and counts nothing.
 func (b *Builder) Add(f *pb.Fragment, arrivalNs, sentNs int64) error {
+	return b.add(f, checkHere, arrivalNs, sentNs)
+}
+
+// AddChecked is Add for a fragment whose checksum the caller has already
+// compared with its content (Fragment.Intact or a Checksummer of its own,
+// on another goroutine, say): intact is the outcome. The Builder does not
+// checksum f itself, whatever Config.SkipChecksum says; a false intact
+// rejects f exactly as Add rejects a fragment whose checksum does not
+// match (ErrMalformed, ReasonMalformedChecksum), and everything else is as
+// Add. It lets callers spread checksum verification over goroutines while
+// one goroutine owns the Builder. It panics when called from the emit
+// callback, as Add does.
+func (b *Builder) AddChecked(f *pb.Fragment, intact bool, arrivalNs, sentNs int64) error {
+	v := checkedIntact
+	if !intact {
+		v = checkedDamaged
+	}
+	return b.add(f, v, arrivalNs, sentNs)
+}
+
+// checkVerdict says who checks a fragment's checksum in add.
+type checkVerdict uint8
+
+const (
+	checkHere      checkVerdict = iota // the Builder, unless SkipChecksum
+	checkedIntact                      // the caller; it matched
+	checkedDamaged                     // the caller; it did not match
+)
+
+func (b *Builder) add(f *pb.Fragment, v checkVerdict, arrivalNs, sentNs int64) error {
 	if b.emitting {
 		panic("builder: Add called from the emit callback")
 	}
@@ -155,7 +185,7 @@ func (b *Builder) Add(f *pb.Fragment, arrivalNs, sentNs int64) error {
 	b.tick(arrivalNs)
 
 	si := b.index.find(f.SourceId)
-	if b.verify && b.checksum(f) != f.Checksum {
+	if v == checkedDamaged || v == checkHere && b.verify && b.checksum(f) != f.Checksum {
 		return b.reject(f, si, ReasonMalformedChecksum, nil)
 	}
 	if f.Run != b.run {

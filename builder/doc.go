@@ -76,5 +76,7 @@
 // builders scale out by owning shares of the crossings (Partition). The
 // Event passed to the emit callback, with its slices, is valid only during
 // the callback; its fragments are sorted by source id. The callback must
-// not call the Builder.
+// not call the Builder. A caller that verifies checksums on goroutines of
+// its own hands the outcome to AddChecked, and the one goroutine owning
+// the Builder only builds.
 package builder
