@@ -2,13 +2,16 @@ package report
 
 import (
 	"context"
+	"io/fs"
 	"os"
 	"path/filepath"
 	"sync"
 	"testing"
 
 	"github.com/bunchsieve/bunchsieve/detector"
+	"github.com/bunchsieve/bunchsieve/examples"
 	"github.com/bunchsieve/bunchsieve/services/report/replay"
+	"github.com/bunchsieve/bunchsieve/trigger"
 )
 
 var (
@@ -50,11 +53,31 @@ func benchStream(b *testing.B) string {
 // building with checksums, features, decisions, the report's counts and
 // the per-event ROOT tree, then report.json, rates.csv and the plots.
 func BenchmarkReportStream(b *testing.B) {
-	path := benchStream(b)
 	m, text := starter(b)
-	dir := b.TempDir()
 	ef, _ := ParseEfficiency("met-120:met")
-	opts := Options{Menu: m, MenuSource: text, Efficiencies: []EfficiencySpec{ef}, RootFile: filepath.Join(dir, ROOTFile)}
+	benchReport(b, Options{Menu: m, MenuSource: text, Efficiencies: []EfficiencySpec{ef}})
+}
+
+// BenchmarkReportStreamPhysics is BenchmarkReportStream with the 62 rules
+// of the physics example menu and no efficiency, what `bunchsieve replay
+// --menu examples/menus/lantern-physics.yaml` computes and writes.
+func BenchmarkReportStreamPhysics(b *testing.B) {
+	const name = "menus/lantern-physics.yaml"
+	text, err := fs.ReadFile(examples.FS, name)
+	if err != nil {
+		b.Fatal(err)
+	}
+	m, err := trigger.ParseMenu(name, text)
+	if err != nil {
+		b.Fatal(err)
+	}
+	benchReport(b, Options{Menu: m, MenuSource: text})
+}
+
+func benchReport(b *testing.B, opts Options) {
+	path := benchStream(b)
+	dir := b.TempDir()
+	opts.RootFile = filepath.Join(dir, ROOTFile)
 	info, _ := os.Stat(path)
 	b.SetBytes(info.Size())
 	b.ReportAllocs()
@@ -78,5 +101,6 @@ func BenchmarkReportStream(b *testing.B) {
 	b.ReportMetric(float64(events)/b.Elapsed().Seconds(), "events/s")
 	if cpu := cpuSeconds() - cpu0; cpu > 0 {
 		b.ReportMetric(cpu/float64(events)*1e6, "cpu-us/event")
+		b.ReportMetric(float64(events)/cpu, "events/cpu-s")
 	}
 }

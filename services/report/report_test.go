@@ -390,6 +390,38 @@ func TestReportDeterministic(t *testing.T) {
 	}
 }
 
+// A recorded stream, read by a reader, decoding goroutines and the
+// builder's feeder, gives byte-identical report.json and rates.csv
+// whatever the number of workers, truth records included.
+func TestReportDeterministicStream(t *testing.T) {
+	gen, part := physicsGen(t, 12, detector.PhysicsConfig{Mu: 20, LibraryEvents: 60})
+	path := recordStream(t, gen, part, 1200, true)
+	var jsons, csvs [][]byte
+	for _, w := range []int{1, 2, 3, 2} {
+		src, err := replay.OpenStream(path)
+		if err != nil {
+			t.Fatal(err)
+		}
+		opts := fullOptions(t, "")
+		opts.Workers = w
+		rep := run(t, src, opts)
+		src.Close()
+		if rep.Processing.Crossings != 1200 || rep.Processing.TruthMatched != 1200 {
+			t.Fatalf("workers %d: processing %+v", w, rep.Processing)
+		}
+		j, err := rep.JSON()
+		if err != nil {
+			t.Fatal(err)
+		}
+		jsons, csvs = append(jsons, j), append(csvs, rep.CSV())
+	}
+	for i := 1; i < len(jsons); i++ {
+		if !bytes.Equal(jsons[i], jsons[0]) || !bytes.Equal(csvs[i], csvs[0]) {
+			t.Fatalf("run %d differs from run 0", i)
+		}
+	}
+}
+
 // A forced-process sample is weighted: each crossing weighs the expected
 // number of interactions of the process per crossing, and rates are the
 // sum of passing weights over the crossings times the crossing rate.

@@ -11,6 +11,7 @@ import (
 
 	"github.com/bunchsieve/bunchsieve/detector"
 	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+	"github.com/bunchsieve/bunchsieve/services/recording"
 	"github.com/bunchsieve/bunchsieve/trigger"
 )
 
@@ -32,7 +33,9 @@ func TestMain(m *testing.M) {
 // benchStream records, once per test binary, 20000 crossings of the
 // physics generator at pile-up 60 with the 16 calorimeter sources of the
 // built-in description.
-func benchStream(b *testing.B) string {
+func benchStream(b *testing.B) string { return benchStreamT(b) }
+
+func benchStreamT(b testing.TB) string {
 	benchOnce.Do(func() {
 		d := detector.DefaultDescription()
 		part, err := detector.NewPartition(d.Geometry, 16)
@@ -59,9 +62,15 @@ func benchStream(b *testing.B) string {
 // BenchmarkReplayStream replays a recorded mu = 60 stream through the
 // builder and the starter menu, reading, decompressing, decoding and
 // checksumming included, and reports events per second.
-func BenchmarkReplayStream(b *testing.B) {
+func BenchmarkReplayStream(b *testing.B) { benchReplay(b, starterMenu(b)) }
+
+// BenchmarkReplayStreamPhysics is BenchmarkReplayStream with the 62 rules
+// of the physics example menu, the work of a `bunchsieve replay` of that
+// menu without the report.
+func BenchmarkReplayStreamPhysics(b *testing.B) { benchReplay(b, physicsMenu(b)) }
+
+func benchReplay(b *testing.B, m *trigger.Menu) {
 	path := benchStream(b)
-	m := starterMenu(b)
 	info, _ := os.Stat(path)
 	b.SetBytes(info.Size())
 	b.ReportAllocs()
@@ -83,6 +92,7 @@ func BenchmarkReplayStream(b *testing.B) {
 	b.ReportMetric(float64(events)/b.Elapsed().Seconds(), "events/s")
 	if cpu := cpuSeconds() - cpu0; cpu > 0 {
 		b.ReportMetric(cpu/float64(events)*1e6, "cpu-us/event")
+		b.ReportMetric(float64(events)/cpu, "events/cpu-s")
 	}
 }
 
@@ -119,7 +129,7 @@ func hotEvent(b *testing.B) ([]*pb.Fragment, []byte) {
 // BenchmarkDecodeBatch decodes the 16 fragments of one mu = 60 crossing.
 func BenchmarkDecodeBatch(b *testing.B) {
 	_, data := hotEvent(b)
-	pool := newFragmentPool()
+	pool := newFragmentPool().cache()
 	var out []*pb.Fragment
 	b.SetBytes(int64(len(data)))
 	b.ReportAllocs()
@@ -141,5 +151,44 @@ func BenchmarkTowerTable(b *testing.B) {
 	for b.Loop() {
 		table.fill(frags, 1, &ev)
 	}
-	b.ReportMetric(float64(len(ev.Towers)), "towers/event")
+	b.ReportMetric(float64(ev.NumTowers()), "towers/event")
+}
+
+// BenchmarkDecodeRecorded decodes and checksums the fragment batches of
+// the recorded mu = 60 stream, held in memory, and reports the cost per
+// crossing (16 fragments).
+func BenchmarkDecodeRecorded(b *testing.B) {
+	r, err := recording.Open(benchStream(b))
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer r.Close()
+	var batches [][]byte
+	for len(batches) < 4000 {
+		bt, err := r.Next()
+		if err != nil {
+			break
+		}
+		batches = append(batches, append([]byte(nil), bt.Data...))
+	}
+	pool := newFragmentPool().cache()
+	var out []*pb.Fragment
+	var sum pb.Checksummer
+	frags, k := 0, 0
+	b.ReportAllocs()
+	b.ResetTimer()
+	for b.Loop() {
+		for _, f := range out {
+			pool.put(f)
+		}
+		out, _, _ = decodeBatch(batches[k], pool, out[:0])
+		for _, f := range out {
+			if sum.Sum(f) != f.Checksum {
+				b.Fatal("a recorded fragment does not check")
+			}
+		}
+		frags += len(out)
+		k = (k + 1) % len(batches)
+	}
+	b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(frags)*16/1000, "us/crossing")
 }

@@ -7,6 +7,7 @@ import (
 	"math"
 	"math/bits"
 	"slices"
+	"sync"
 
 	"google.golang.org/protobuf/encoding/protowire"
 
@@ -28,9 +29,11 @@ type slot struct {
 	hits  []pb.MuonHit
 }
 
-// fragmentPool hands out reusable fragments. It is owned by one goroutine
-// and is not safe for concurrent use.
+// fragmentPool hands out reusable fragments. It is safe for concurrent
+// use: decoding goroutines take slots through slotCaches of their own,
+// and the feeder gives them back once their events have been decided.
 type fragmentPool struct {
+	mu    sync.Mutex
 	free  []*slot
 	index map[*pb.Fragment]*slot
 }
@@ -39,14 +42,22 @@ func newFragmentPool() *fragmentPool {
 	return &fragmentPool{index: make(map[*pb.Fragment]*slot)}
 }
 
-func (p *fragmentPool) get() *slot {
-	if n := len(p.free); n > 0 {
-		s := p.free[n-1]
-		p.free = p.free[:n-1]
-		return s
+// take appends n free slots to dst, growing the pool as needed.
+func (p *fragmentPool) take(dst []*slot, n int) []*slot {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	for len(p.free) < n {
+		p.grow()
 	}
-	// Grown in blocks, so the pool costs few allocations however large
-	// the builder's window.
+	k := len(p.free) - n
+	dst = append(dst, p.free[k:]...)
+	p.free = p.free[:k]
+	return dst
+}
+
+// grow adds a block of slots; p.mu is held. Blocks keep the pool at few
+// allocations however large the builder's window.
+func (p *fragmentPool) grow() {
 	block := make([]slot, 256)
 	for i := range block {
 		s := &block[i]
@@ -57,19 +68,58 @@ func (p *fragmentPool) get() *slot {
 		s.caloP.Towers = make([]uint32, 0, 96)
 		s.caloP.EtCounts = make([]uint32, 0, 96)
 		p.index[&s.f] = s
-		if i > 0 {
-			p.free = append(p.free, s)
-		}
+		p.free = append(p.free, s)
 	}
-	return &block[0]
 }
 
 // put returns the fragment f of a slot to the pool.
 func (p *fragmentPool) put(f *pb.Fragment) {
+	p.mu.Lock()
 	if s, ok := p.index[f]; ok {
 		p.free = append(p.free, s)
 	}
+	p.mu.Unlock()
 }
+
+// putAll returns the fragments of slots to the pool under one lock.
+func (p *fragmentPool) putAll(fs []*pb.Fragment) {
+	if len(fs) == 0 {
+		return
+	}
+	p.mu.Lock()
+	for _, f := range fs {
+		if s, ok := p.index[f]; ok {
+			p.free = append(p.free, s)
+		}
+	}
+	p.mu.Unlock()
+}
+
+// cache returns a slotCache of p.
+func (p *fragmentPool) cache() *slotCache { return &slotCache{pool: p} }
+
+// slotCache takes slots from its pool a block at a time, so that a
+// decoding goroutine locks the pool once per block rather than once per
+// fragment. It is used by one goroutine.
+type slotCache struct {
+	pool *fragmentPool
+	free []*slot
+}
+
+const cacheBlock = 128
+
+func (c *slotCache) get() *slot {
+	if len(c.free) == 0 {
+		c.free = c.pool.take(c.free, cacheBlock)
+	}
+	n := len(c.free) - 1
+	s := c.free[n]
+	c.free = c.free[:n]
+	return s
+}
+
+// put returns f, taken through c, to the pool.
+func (c *slotCache) put(f *pb.Fragment) { c.pool.put(f) }
 
 // batchInfo is what decodeBatch reads besides the fragments.
 type batchInfo struct {
@@ -85,7 +135,7 @@ type batchInfo struct {
 // occurrence of a scalar field win; it differs only in dropping unknown
 // fields instead of keeping them. On error the fragments taken so far are
 // returned to the pool and out is returned unchanged.
-func decodeBatch(data []byte, pool *fragmentPool, out []*pb.Fragment) ([]*pb.Fragment, batchInfo, error) {
+func decodeBatch(data []byte, pool *slotCache, out []*pb.Fragment) ([]*pb.Fragment, batchInfo, error) {
 	var info batchInfo
 	start := len(out)
 	fail := func(what string) ([]*pb.Fragment, batchInfo, error) {

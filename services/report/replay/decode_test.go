@@ -72,7 +72,7 @@ func clearUnknown(f *pb.Fragment) {
 // sent_unix_ns a replay appends.
 func TestDecodeBatchMatchesProtobuf(t *testing.T) {
 	r := rand.New(rand.NewPCG(1, 2))
-	pool := newFragmentPool()
+	pool := newFragmentPool().cache()
 	var out []*pb.Fragment
 	for i := range 2000 {
 		b := randomBatch(r)
@@ -116,7 +116,7 @@ func FuzzDecodeBatch(f *testing.F) {
 		f.Add(data)
 	}
 	f.Add([]byte{0x2a, 0x05, 0x3a, 0x03, 0x0a, 0x01})
-	pool := newFragmentPool()
+	pool := newFragmentPool().cache()
 	f.Fuzz(func(t *testing.T, data []byte) {
 		out, _, err := decodeBatch(data, pool, nil)
 		defer func() {

@@ -1,40 +1,105 @@
 package replay
 
 import (
+	"math"
+
 	"github.com/bunchsieve/bunchsieve/detector"
 	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
 	"github.com/bunchsieve/bunchsieve/trigger"
 )
 
-// towerTable decodes calorimeter payloads into trigger towers exactly as
-// services/selector.FillEvent does (ET from least counts, eta and phi at
-// the tower centres, towers off the grid or with zero counts skipped), but
-// reads each tower's coordinates from a table made once per geometry
-// instead of computing them per tower. It is immutable and safe for
-// concurrent use.
+// towerTable decodes fragment payloads into the selection's event exactly
+// as services/selector.FillEvent does (calorimeter towers as
+// trigger.GridTowers with ET from least counts, towers off the grid or
+// with zero counts skipped, muon-station hits in mm), but reads each
+// tower's cell from a table made once per geometry instead of computing
+// it per tower. A geometry whose bins do not fit a GridTower gets Towers
+// at the tower centres, as FillEvent gives it. It is immutable and safe
+// for concurrent use.
 type towerTable struct {
-	towers []trigger.Tower // by global tower index, ET unset
-	lsb    float64
+	cells []towerCell // by global tower index
+	lsb   float64
+	// wide, for a geometry too large for GridTowers, holds the Towers by
+	// global index with ET unset; nil otherwise.
+	wide []trigger.Tower
+}
+
+// towerCell is the cell of one tower, 6 bytes, so that the table of a
+// whole calorimeter stays in cache beside the features' own tables.
+type towerCell struct {
+	ieta, iphi uint16
+	layer      uint8
 }
 
 func newTowerTable(g *detector.Geometry) *towerTable {
-	t := &towerTable{towers: make([]trigger.Tower, g.Towers()), lsb: g.LeastCountGeV}
-	for i := range t.towers {
+	t := &towerTable{lsb: g.LeastCountGeV}
+	grid := g.EtaBins <= math.MaxUint16 && g.PhiBins <= math.MaxUint16 && detector.Layers <= math.MaxUint8+1
+	if !grid {
+		t.wide = make([]trigger.Tower, g.Towers())
+		for i := range t.wide {
+			layer, ieta, iphi, _ := g.TowerCoords(i)
+			t.wide[i] = trigger.Tower{Layer: uint8(layer), IEta: ieta, IPhi: iphi, Eta: g.EtaCentre(ieta), Phi: g.PhiCentre(iphi)}
+		}
+		return t
+	}
+	t.cells = make([]towerCell, g.Towers())
+	for i := range t.cells {
 		layer, ieta, iphi, _ := g.TowerCoords(i)
-		t.towers[i] = trigger.Tower{Layer: uint8(layer), IEta: ieta, IPhi: iphi, Eta: g.EtaCentre(ieta), Phi: g.PhiCentre(iphi)}
+		t.cells[i] = towerCell{ieta: uint16(ieta), iphi: uint16(iphi), layer: uint8(layer)}
 	}
 	return t
 }
 
-// fill decodes the calorimeter fragments into ev, reusing its storage.
+// fill decodes the fragments into ev, reusing its storage.
 func (t *towerTable) fill(fragments []*pb.Fragment, lumiSlice uint32, ev *trigger.Event) {
+	ev.LumiSlice = lumiSlice
+	ev.Towers, ev.GridTowers, ev.MuonHits = ev.Towers[:0], ev.GridTowers[:0], ev.MuonHits[:0]
 	total := 0
 	for _, f := range fragments {
-		if c := f.GetCalo(); c != nil {
-			total += min(len(c.Towers), len(c.EtCounts))
+		switch p := f.Payload.(type) {
+		case *pb.Fragment_Calo:
+			total += min(len(p.Calo.Towers), len(p.Calo.EtCounts))
+		case *pb.Fragment_Muon:
+			for _, h := range p.Muon.Hits {
+				ev.MuonHits = append(ev.MuonHits, trigger.MuonHit{Station: int(h.Station), X: float64(h.XMm), Y: float64(h.YMm), Z: float64(h.ZMm)})
+			}
 		}
 	}
-	out := ev.Towers[:0]
+	if t.wide != nil {
+		t.fillWide(fragments, total, ev)
+		return
+	}
+	out := ev.GridTowers
+	if cap(out) < total {
+		out = make([]trigger.GridTower, 0, total+total/4)
+	}
+	out = out[:total]
+	cells := t.cells
+	j := 0
+	for _, f := range fragments {
+		c := f.GetCalo()
+		if c == nil {
+			continue
+		}
+		counts := c.EtCounts
+		towers := c.Towers[:min(len(c.Towers), len(counts))]
+		counts = counts[:len(towers)]
+		for i, idx := range towers {
+			if counts[i] == 0 || int(idx) >= len(cells) {
+				continue
+			}
+			cell := cells[idx]
+			// float64(counts) * least count, as Geometry.ET computes it.
+			out[j] = trigger.GridTower{ET: float64(counts[i]) * t.lsb, IEta: cell.ieta, IPhi: cell.iphi, Layer: cell.layer}
+			j++
+		}
+	}
+	ev.GridTowers = out[:j]
+}
+
+// fillWide is fill's calorimeter part for a wide geometry.
+func (t *towerTable) fillWide(fragments []*pb.Fragment, total int, ev *trigger.Event) {
+	out := ev.Towers
 	if cap(out) < total {
 		out = make([]trigger.Tower, 0, total+total/4)
 	}
@@ -49,16 +114,14 @@ func (t *towerTable) fill(fragments []*pb.Fragment, lumiSlice uint32, ev *trigge
 		towers := c.Towers[:min(len(c.Towers), len(counts))]
 		counts = counts[:len(towers)]
 		for i, idx := range towers {
-			if counts[i] == 0 || int(idx) >= len(t.towers) {
+			if counts[i] == 0 || int(idx) >= len(t.wide) {
 				continue
 			}
 			tw := &out[j]
-			*tw = t.towers[idx]
-			// float64(counts) * least count, as Geometry.ET computes it.
+			*tw = t.wide[idx]
 			tw.ET = float64(counts[i]) * t.lsb
 			j++
 		}
 	}
 	ev.Towers = out[:j]
-	ev.LumiSlice = lumiSlice
 }

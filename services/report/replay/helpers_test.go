@@ -30,6 +30,21 @@ func starterMenu(t testing.TB) *trigger.Menu {
 	return m
 }
 
+// physicsMenu returns the 62-rule physics example menu.
+func physicsMenu(t testing.TB) *trigger.Menu {
+	t.Helper()
+	const name = "menus/lantern-physics.yaml"
+	data, err := fs.ReadFile(examples.FS, name)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m, err := trigger.ParseMenu(name, data)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return m
+}
+
 // recordStream writes crossings of gen through the readout emulator into
 // a stream file, with the truth of every crossing when truth is set.
 func recordStream(t testing.TB, gen detector.Generator, part *detector.Partition, crossings uint64, truth bool, faults ...emulator.Fault) string {

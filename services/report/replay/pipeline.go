@@ -28,7 +28,8 @@ type Config struct {
 	// Values are computed for every event from the first menu's features.
 	Values []Quantity
 	// Workers is the number of goroutines that decode towers and compute
-	// features; zero means 2.
+	// features, and of those that decode and checksum a stream's
+	// fragment batches; zero means 2.
 	Workers int
 	// ChunkEvents is the number of events handed to a worker at once;
 	// zero means 32.
@@ -151,7 +152,8 @@ func Run(ctx context.Context, src Source, cfg Config, sink func(*Event) error) (
 		free <- newChunk(cfg.ChunkEvents, nrules, len(cfg.Values))
 	}
 
-	fd := &feeder{pool: newFragmentPool(), truth: make(map[uint64]*recording.TruthRecord),
+	pool := newFragmentPool()
+	fd := &feeder{pool: pool, cache: pool.cache(), decoders: cfg.Workers, truth: make(map[uint64]*recording.TruthRecord),
 		free: free, ordered: ordered, work: work, ctx: ctx, lumiOrbits: lumiOrbits}
 	b, err := builder.New(bc, fd.emit)
 	if err != nil {
@@ -303,7 +305,7 @@ func (w *worker) process(c *chunk) {
 	for i := range c.n {
 		e := &c.events[i]
 		w.table.fill(e.frags, e.lumi, &w.ev)
-		e.towers = len(w.ev.Towers)
+		e.towers = w.ev.NumTowers()
 		for m, sel := range w.sels {
 			f := &w.feats[m]
 			sel.ComputeFeatures(&w.ev, f)
@@ -326,6 +328,8 @@ type feeder struct {
 	ctx        context.Context
 	b          *builder.Builder
 	pool       *fragmentPool
+	cache      *slotCache // the feeder's own, for sources that make fragments
+	decoders   int        // goroutines a source may decode with
 	truth      map[uint64]*recording.TruthRecord
 	spare      []*recording.TruthRecord
 	free       chan *chunk
@@ -358,6 +362,17 @@ func (fd *feeder) add(f *pb.Fragment) {
 	}
 }
 
+// addChecked is add for a fragment whose checksum a decoding goroutine
+// has compared already: intact is the outcome.
+func (fd *feeder) addChecked(f *pb.Fragment, intact bool) {
+	if f.TimestampNs > fd.arrival {
+		fd.arrival = f.TimestampNs
+	}
+	if err := fd.b.AddChecked(f, intact, fd.arrival, fd.arrival); err != nil {
+		fd.pool.put(f)
+	}
+}
+
 // addTruth keeps a copy of a truth record until its event is emitted.
 func (fd *feeder) addTruth(rec *recording.TruthRecord) {
 	fd.truthRecords++
@@ -384,9 +399,7 @@ func (fd *feeder) emit(be *builder.Event) {
 		fd.cur = fd.takeChunk()
 		if fd.cur == nil {
 			// Cancelled: drop the event's fragments back into the pool.
-			for _, f := range be.Fragments {
-				fd.pool.put(f)
-			}
+			fd.pool.putAll(be.Fragments)
 			return
 		}
 	}
@@ -414,9 +427,7 @@ func (fd *feeder) takeChunk() *chunk {
 	case c := <-fd.free:
 		for i := range c.events {
 			e := &c.events[i]
-			for _, f := range e.frags {
-				fd.pool.put(f)
-			}
+			fd.pool.putAll(e.frags)
 			e.frags = e.frags[:0]
 			if e.truth != nil {
 				fd.spare = append(fd.spare, e.truth)

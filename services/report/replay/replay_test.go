@@ -5,8 +5,12 @@ import (
 	"errors"
 	"io"
 	"math"
+	"os"
 	"reflect"
+	"runtime"
+	"strings"
 	"testing"
+	"time"
 
 	"google.golang.org/protobuf/proto"
 
@@ -23,6 +27,8 @@ import (
 // proto.Unmarshal, the builder, selector.FillEvent and the selection
 // library's own Selector.Decide (prescales included): the reference the
 // parallel replay must match event by event.
+//
+// Reading stops at the first damage of the file, as a replay's does.
 func sequential(t *testing.T, path string, m *trigger.Menu) []decided {
 	t.Helper()
 	r, err := recording.Open(path)
@@ -53,6 +59,10 @@ func sequential(t *testing.T, path string, m *trigger.Menu) []decided {
 	for {
 		rb, err := r.Next()
 		if errors.Is(err, io.EOF) {
+			break
+		}
+		var fe *recording.FormatError
+		if errors.As(err, &fe) {
 			break
 		}
 		if err != nil {
@@ -207,6 +217,107 @@ func TestSinkErrorStops(t *testing.T) {
 		return nil
 	})
 	if !errors.Is(err, stop) || n != 100 {
+		t.Fatalf("err %v after %d events", err, n)
+	}
+}
+
+// A stream damaged part way gives, for any number of workers, exactly the
+// events of the sequential chain reading up to the damage, and says where
+// reading stopped.
+func TestDamagedStreamMatchesSequential(t *testing.T) {
+	gen, part := simpleGenerator(t, 6)
+	path := recordStream(t, gen, part, 3000, false)
+	data, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Flip a byte past the middle: that frame fails its checksum.
+	data[len(data)*3/5] ^= 0x40
+	if err := os.WriteFile(path, data, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	m := starterMenu(t)
+	want := sequential(t, path, m)
+	if len(want) == 0 || len(want) >= 3000 {
+		t.Fatalf("the sequential chain read %d events of 3000: the damage is not part way", len(want))
+	}
+	for _, w := range []int{1, 2, 3} {
+		src, err := OpenStream(path)
+		if err != nil {
+			t.Fatal(err)
+		}
+		got, sum := collect(t, src, Config{Menus: []*trigger.Menu{m}, Workers: w})
+		src.Close()
+		if !strings.Contains(sum.InputError, "corrupted at byte offset") {
+			t.Fatalf("workers %d: input error %q", w, sum.InputError)
+		}
+		if len(got) != len(want) {
+			t.Fatalf("workers %d: %d events, the sequential chain %d", w, len(got), len(want))
+		}
+		for i := range got {
+			g, ref := got[i], want[i]
+			if g.orbit != ref.orbit || g.bcid != ref.bcid || g.flags != ref.flags || g.accept != ref.accept ||
+				!reflect.DeepEqual(g.passed, ref.passed) || !reflect.DeepEqual(g.kept, ref.kept) {
+				t.Fatalf("workers %d, event %d: replay %+v, sequential %+v", w, i, g, ref)
+			}
+		}
+	}
+}
+
+// A sink error stops a stream replay too, and the reading and decoding
+// goroutines end with the run.
+func TestSinkErrorStopsStream(t *testing.T) {
+	gen, part := simpleGenerator(t, 2)
+	path := recordStream(t, gen, part, 3000, true)
+	before := runtime.NumGoroutine()
+	stop := errors.New("enough")
+	for _, at := range []int{1, 100, 2500} {
+		src, err := OpenStream(path)
+		if err != nil {
+			t.Fatal(err)
+		}
+		n := 0
+		_, err = Run(context.Background(), src, Config{Menus: []*trigger.Menu{starterMenu(t)}, ChunkEvents: 16}, func(*Event) error {
+			n++
+			if n == at {
+				return stop
+			}
+			return nil
+		})
+		src.Close()
+		if !errors.Is(err, stop) || n != at {
+			t.Fatalf("err %v after %d events, want the sink's error after %d", err, n, at)
+		}
+	}
+	// Run joins its goroutines before it returns; poll in case the
+	// runtime has not yet reaped them.
+	deadline := time.Now().Add(5 * time.Second)
+	for runtime.NumGoroutine() > before {
+		if time.Now().After(deadline) {
+			t.Fatalf("%d goroutines after the runs, %d before", runtime.NumGoroutine(), before)
+		}
+		runtime.Gosched()
+	}
+}
+
+// A cancelled context stops a stream replay with the context's error.
+func TestCancelStopsStream(t *testing.T) {
+	gen, part := simpleGenerator(t, 2)
+	path := recordStream(t, gen, part, 2000, false)
+	src, err := OpenStream(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer src.Close()
+	ctx, cancel := context.WithCancel(context.Background())
+	n := 0
+	_, err = Run(ctx, src, Config{Menus: []*trigger.Menu{starterMenu(t)}, ChunkEvents: 8}, func(*Event) error {
+		if n++; n == 50 {
+			cancel()
+		}
+		return nil
+	})
+	if !errors.Is(err, context.Canceled) || n >= 2000 {
 		t.Fatalf("err %v after %d events", err, n)
 	}
 }

@@ -4,7 +4,6 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"io"
 	"os"
 
 	"go.yaml.in/yaml/v3"
@@ -116,44 +115,6 @@ func (s *StreamSource) Sample() Sample { return s.sample }
 
 // Close closes the file.
 func (s *StreamSource) Close() error { return s.r.Close() }
-
-func (s *StreamSource) feed(ctx context.Context, fd *feeder) error {
-	if s.sample.Truth {
-		s.r.OnTruth(fd.addTruth)
-	}
-	var frags []*pb.Fragment
-	for batches := 0; ; batches++ {
-		if batches%64 == 0 {
-			if err := ctx.Err(); err != nil {
-				return err
-			}
-			if s.size > 0 {
-				fd.progress(float64(s.r.Offset()) / float64(s.size))
-			}
-		}
-		b, err := s.r.Next()
-		if errors.Is(err, io.EOF) {
-			return nil
-		}
-		if err != nil {
-			// Damage: what came before has been delivered; the report
-			// covers it and says where reading stopped.
-			fd.inputError(err)
-			return nil
-		}
-		fd.batches++
-		// End-of-run markers carry no fragments: a replay ends with the
-		// file.
-		frags, _, err = decodeBatch(b.Data, fd.pool, frags[:0])
-		if err != nil {
-			fd.undecodable++
-			continue
-		}
-		for _, f := range frags {
-			fd.add(f)
-		}
-	}
-}
 
 // GeneratorSource makes crossings with a detector generator: Workers
 // goroutines, each with its own generator, make crossings in blocks, and
@@ -333,7 +294,7 @@ func (s *GeneratorSource) feed(ctx context.Context, fd *feeder) error {
 			fd.addTruth(&recording.TruthRecord{N: c.N, Orbit: c.Orbit, Bcid: c.Bcid, Interactions: c.Interactions,
 				TrueMETx: c.TrueMETx, TrueMETy: c.TrueMETy, Truth: c.Truth})
 			for i, id := range sources {
-				sl := fd.pool.get()
+				sl := fd.cache.get()
 				f := &sl.f
 				f.SourceId, f.Run, f.Orbit, f.Bcid = id, s.sample.Run, c.Orbit, c.Bcid
 				f.TimestampNs, f.Status, f.Checksum = c.SourceTimestamp(id), 0, 0
