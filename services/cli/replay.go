@@ -45,7 +45,7 @@ func runReplay(ctx context.Context, e *env, args []string) error {
 	fs.Var(&effs, "efficiency", "turn-on curve, `RULE:REF[=FROM:TO:STEP]`; REF is "+strings.Join(rpt.References(), ", ")+" or a feature such as met, ht, jets[0].et (repeatable)")
 	scale := fs.String("scale-lumi", "", "also give the rates scaled linearly from luminosity `FROM:TO` (cm^-2 s^-1), e.g. 2e34:5e34")
 	cl := fs.Float64("cl", 0.95, "confidence level of the efficiency intervals")
-	workers := fs.Int("workers", 2, "goroutines computing features")
+	workers := fs.Int("workers", 2, "goroutines decoding fragments and computing features (the output does not depend on it)")
 	noProgress := fs.Bool("no-progress", false, "draw no progress bar even on a terminal")
 	if err := parse(fs, args, 0); err != nil {
 		return err

@@ -198,9 +198,16 @@ func NewGeneratorSource(cfg GeneratorConfig) (*GeneratorSource, error) {
 	if err != nil {
 		return nil, fmt.Errorf("replay: encode generator settings: %w", err)
 	}
+	// The sources the readout would have (runconfig.Config.Readout): the
+	// toy generator reads the calorimeter only, the others the muon
+	// stations too.
+	sources := part.SourceIDs()
+	if kind != detector.GeneratorSimple {
+		sources = part.AllSourceIDs()
+	}
 	s.sample = Sample{
 		Kind: "generator", Generator: kind, GeneratorConfig: string(text), Seed: cfg.Seed, Mu: mu,
-		Run: cfg.Run, Sources: part.SourceIDs(), Truth: true, Crossings: cfg.Crossings, Description: d,
+		Run: cfg.Run, Sources: sources, Truth: true, Crossings: cfg.Crossings, Description: d,
 	}
 	return s, nil
 }
@@ -298,6 +305,23 @@ func (s *GeneratorSource) feed(ctx context.Context, fd *feeder) error {
 				f := &sl.f
 				f.SourceId, f.Run, f.Orbit, f.Bcid = id, s.sample.Run, c.Orbit, c.Bcid
 				f.TimestampNs, f.Status, f.Checksum = c.SourceTimestamp(id), 0, 0
+				if pos, ok := s.part.MuonPosition(id); ok {
+					// As the readout fills a muon source's fragment
+					// (services/emulator): its hits, sorted by station.
+					sl.hits = sl.hits[:0]
+					if pos < len(c.MuonHits) {
+						for _, h := range c.MuonHits[pos] {
+							sl.hits = append(sl.hits, pb.MuonHit{Station: uint32(h.Station), XMm: float32(h.X), YMm: float32(h.Y), ZMm: float32(h.Z)})
+						}
+					}
+					sl.muonP.Hits = sl.muonP.Hits[:0]
+					for k := range sl.hits {
+						sl.muonP.Hits = append(sl.muonP.Hits, &sl.hits[k])
+					}
+					f.Payload = &sl.muon
+					fd.add(f)
+					continue
+				}
 				if i < len(c.Saturated) && c.Saturated[i] {
 					f.Status = uint32(pb.FragmentStatus_FRAGMENT_STATUS_SATURATED)
 				}
