@@ -44,7 +44,17 @@ type Dataset struct {
 	Description *detector.Description
 
 	slotIndex []int32 // bcid -> position among the colliding slots, or -1
+	// chunks hold the batches' encodings back to back. A Batch holds no
+	// pointer, only where its bytes are: a dataset of millions of small
+	// batches held as that many objects, or as a slice of that many
+	// pointers, costs the garbage collector a long mark phase in every
+	// cycle, and the steps would measure the collector in their latency
+	// tail.
+	chunks [][]byte
 }
+
+// chunkBytes is the size of a Dataset's chunks.
+const chunkBytes = 4 << 20
 
 // Batch is one encoded FragmentBatch of a Dataset.
 type Batch struct {
@@ -54,9 +64,18 @@ type Batch struct {
 	// one more than the index of its last crossing.
 	Due       uint64
 	Fragments int
-	// Data is the encoding followed by a spare sent_unix_ns field (see
-	// stampRoom) that the feed overwrites with the publish time.
-	Data []byte
+	// The encoding followed by a spare sent_unix_ns field (see stampRoom)
+	// that the feed overwrites with the publish time: n bytes at off in
+	// the dataset's chunk (see Dataset.Data).
+	chunk, off, n uint32
+}
+
+// Data returns b's encoding followed by its stamp room; b must be one of
+// ds's batches or markers. The bytes are ds's own: only a Feed may write
+// them, and only the stamp room.
+func (ds *Dataset) Data(b *Batch) []byte {
+	end := b.off + b.n
+	return ds.chunks[b.chunk][b.off:end:end]
 }
 
 // Protobuf decoders take the last occurrence of a scalar field, so a
@@ -179,7 +198,9 @@ func Load(path string) (*Dataset, error) {
 		// A stream cut short has no markers: make them.
 		for p := 0; p < ds.Partitions; p++ {
 			for _, id := range ds.Sources {
-				ds.Ends = append(ds.Ends, Batch{Partition: p, Source: id, Data: endMarker(ds.Run, id)})
+				b := Batch{Partition: p, Source: id}
+				ds.keep(&b, endMarker(ds.Run, id), time.Now().UnixNano())
+				ds.Ends = append(ds.Ends, b)
 			}
 		}
 	}
@@ -193,7 +214,7 @@ func newDataset(d *detector.Description, run uint32, sources []uint32, partition
 	return &Dataset{Run: run, Sources: sources, Partitions: partitions, Description: d}
 }
 
-// endMarker encodes an end-of-run FragmentBatch with stamp room.
+// endMarker encodes an end-of-run FragmentBatch.
 func endMarker(run, source uint32) []byte {
 	var b []byte
 	b = protowire.AppendTag(b, 1, protowire.VarintType)
@@ -203,8 +224,7 @@ func endMarker(run, source uint32) []byte {
 		b = protowire.AppendVarint(b, uint64(run))
 	}
 	b = protowire.AppendTag(b, 6, protowire.VarintType)
-	b = protowire.AppendVarint(b, 1)
-	return appendStamp(b, time.Now().UnixNano())
+	return protowire.AppendVarint(b, 1)
 }
 
 // finish works out the stream's length from its batches.
@@ -233,7 +253,7 @@ func (s memorySink) Send(partition int, source uint32, _ int64, data []byte, fra
 		return fmt.Errorf("loadtest: batch of source %d: %w", source, err)
 	}
 	b := Batch{Partition: partition, Source: source, Fragments: fragments}
-	b.Data = appendStamp(append(make([]byte, 0, len(data)+stampRoom), data...), time.Now().UnixNano())
+	s.ds.keep(&b, data, time.Now().UnixNano())
 	if info.fragments == 0 {
 		if info.endOfRun {
 			s.ds.Ends = append(s.ds.Ends, b)
@@ -248,12 +268,28 @@ func (s memorySink) Send(partition int, source uint32, _ int64, data []byte, fra
 	b.Fragments = info.fragments
 	s.ds.Batches = append(s.ds.Batches, b)
 	s.ds.Fragments += uint64(info.fragments)
-	s.ds.Bytes += int64(len(b.Data))
+	s.ds.Bytes += int64(b.n)
 	return nil
 }
 
 // Flush does nothing.
 func (memorySink) Flush() error { return nil }
+
+// keep copies data followed by a stamp of sentNs into ds's chunks and
+// points b at the copy.
+func (ds *Dataset) keep(b *Batch, data []byte, sentNs int64) {
+	n := len(data) + stampRoom
+	last := len(ds.chunks) - 1
+	if last < 0 || cap(ds.chunks[last])-len(ds.chunks[last]) < n {
+		ds.chunks = append(ds.chunks, make([]byte, 0, max(chunkBytes, n)))
+		last++
+	}
+	c := ds.chunks[last]
+	b.chunk, b.off = uint32(last), uint32(len(c))
+	c = appendStamp(append(c, data...), sentNs)
+	b.n = uint32(len(c)) - b.off
+	ds.chunks[last] = c
+}
 
 // crossingIndex returns the run's crossing number of (orbit, bcid): the
 // inverse of FillingScheme.Crossing.

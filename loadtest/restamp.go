@@ -75,11 +75,12 @@ type fragFields struct {
 }
 
 // Restamp appends to dst batch b as lap lap sends it. Lap 0 is b itself.
-// The result ends with stamp room, as b.Data does.
+// The result ends with stamp room, as the batch's own bytes do.
 func (r *Restamper) Restamp(dst []byte, b *Batch, lap uint64) ([]byte, error) {
-	data := b.Data[:len(b.Data)-stampRoom]
+	all := r.ds.Data(b)
+	data := all[:len(all)-stampRoom]
 	if lap == 0 {
-		return append(dst, b.Data...), nil
+		return append(dst, all...), nil
 	}
 	orbits := lap * r.ds.LapOrbits
 	seqShift := lap * r.perLap[[2]uint32{uint32(b.Partition), b.Source}]
@@ -130,7 +131,7 @@ func (r *Restamper) Restamp(dst []byte, b *Batch, lap uint64) ([]byte, error) {
 	if !wroteSeq {
 		dst = appendVarint(dst, 3, seqShift)
 	}
-	return append(dst, b.Data[len(b.Data)-stampRoom:]...), nil
+	return append(dst, all[len(all)-stampRoom:]...), nil
 }
 
 // fragment appends field 5 holding fragment f moved by orbits.

@@ -29,18 +29,19 @@ func TestRestampMovesTheBatch(t *testing.T) {
 	for _, lap := range []uint64{1, 2, 1000} {
 		for i := range ds.Batches {
 			b := &ds.Batches[i]
+			data := ds.Data(b)
 			buf, err = r.Restamp(buf[:0], b, lap)
 			if err != nil {
 				t.Fatal(err)
 			}
 			var orig, moved pb.FragmentBatch
-			if err := proto.Unmarshal(b.Data, &orig); err != nil {
+			if err := proto.Unmarshal(data, &orig); err != nil {
 				t.Fatal(err)
 			}
 			if err := proto.Unmarshal(buf, &moved); err != nil {
 				t.Fatal(err)
 			}
-			if string(buf[len(buf)-stampRoom:]) != string(b.Data[len(b.Data)-stampRoom:]) {
+			if string(buf[len(buf)-stampRoom:]) != string(data[len(data)-stampRoom:]) {
 				t.Fatal("the stamp room moved")
 			}
 			want := proto.Clone(&orig).(*pb.FragmentBatch)
@@ -62,7 +63,7 @@ func TestRestampMovesTheBatch(t *testing.T) {
 			// Byte for byte as proto.Marshal writes it, once the batch's
 			// own sent time is set aside.
 			var inner pb.FragmentBatch
-			if err := proto.Unmarshal(b.Data[:len(b.Data)-stampRoom], &inner); err != nil {
+			if err := proto.Unmarshal(data[:len(data)-stampRoom], &inner); err != nil {
 				t.Fatal(err)
 			}
 			want.SentUnixNs = inner.SentUnixNs
@@ -87,7 +88,8 @@ func TestRestampOtherLayouts(t *testing.T) {
 	f := &pb.Fragment{SourceId: 1, Run: 1, Orbit: 0, Bcid: 1, TimestampNs: 25, Payload: &pb.Fragment_Muon{Muon: &pb.MuonPayload{Hits: []*pb.MuonHit{{Station: 1, XMm: 2}}}}}
 	f.Seal()
 	data, _ := proto.Marshal(&pb.FragmentBatch{SourceId: 1, Run: 1, Fragments: []*pb.Fragment{f}})
-	b := &Batch{Source: 1, Data: appendStamp(data, time.Now().UnixNano())}
+	b := &Batch{Source: 1}
+	ds.keep(b, data, time.Now().UnixNano())
 	out, err := NewRestamper(ds).Restamp(nil, b, 2)
 	if err != nil {
 		t.Fatal(err)
@@ -130,7 +132,7 @@ func BenchmarkRestamp(b *testing.B) {
 		for i := 0; b.Loop(); i++ {
 			bt := &ds.Batches[i%len(ds.Batches)]
 			var fb pb.FragmentBatch
-			if err := proto.Unmarshal(bt.Data, &fb); err != nil {
+			if err := proto.Unmarshal(ds.Data(bt), &fb); err != nil {
 				b.Fatal(err)
 			}
 			buf = buf[:0]
