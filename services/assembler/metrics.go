@@ -94,7 +94,7 @@ func (c *accounting) Collect(ch chan<- prometheus.Metric) {
 		}
 		src := strconv.FormatUint(uint64(id), 10)
 		ch <- prometheus.MustNewConstMetric(recv, prometheus.CounterValue, float64(ss.Received), src)
-		ch <- prometheus.MustNewConstMetric(bytes, prometheus.CounterValue, float64(a.bytesIn[id]), src)
+		ch <- prometheus.MustNewConstMetric(bytes, prometheus.CounterValue, float64(a.bytesIn[a.sourceIndex[id]]), src)
 		for _, r := range []struct {
 			name string
 			n    uint64

@@ -96,3 +96,24 @@ func Subscribe(nc *nats.Conn, subject, queue string, h nats.MsgHandler) (*nats.S
 	}
 	return sub, nil
 }
+
+// SubscribeQueued subscribes with the messages delivered into ch, for a
+// consumer that takes whatever has queued up in one go (under one lock and
+// one clock reading) instead of one callback per message. ch's capacity is
+// the pending limit: a message arriving to a full channel is dropped by
+// the client and counted in Subscription.Dropped, as with the limits of
+// Subscribe. An empty queue means no queue group. It is safe for
+// concurrent use, as the connection is.
+func SubscribeQueued(nc *nats.Conn, subject, queue string, ch chan *nats.Msg) (*nats.Subscription, error) {
+	var sub *nats.Subscription
+	var err error
+	if queue == "" {
+		sub, err = nc.ChanSubscribe(subject, ch)
+	} else {
+		sub, err = nc.ChanQueueSubscribe(subject, queue, ch)
+	}
+	if err != nil {
+		return nil, fmt.Errorf("transport: subscribe %s: %w", subject, err)
+	}
+	return sub, nil
+}
