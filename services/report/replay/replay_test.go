@@ -325,10 +325,10 @@ func TestCancelStopsStream(t *testing.T) {
 }
 
 // A generated physics sample carries the muon sources the readout would
-// have: replayed from the generator directly it gives, event for event,
-// the decisions of the same crossings written by the readout emulator
-// into a stream and decided by the plain sequential chain; and the muon
-// rules fire on forced Z -> mu mu crossings.
+// have: replayed from the generator directly, and replayed from the same
+// crossings written by the readout emulator into a stream, it gives event
+// for event the decisions of the plain sequential chain on that stream;
+// and the muon rules fire on forced Z -> mu mu crossings.
 func TestGeneratedMuonsMatchRecordedReadout(t *testing.T) {
 	const seed, crossings = 4, 160
 	d := detector.DefaultDescription()
@@ -369,17 +369,27 @@ func TestGeneratedMuonsMatchRecordedReadout(t *testing.T) {
 	if n := len(src.Sample().Sources); n != len(part.AllSourceIDs()) {
 		t.Fatalf("generated sample has %d sources, the readout %d", n, len(part.AllSourceIDs()))
 	}
-	got, _ := collect(t, src, Config{Menus: []*trigger.Menu{m}, Workers: 2})
-	if len(got) != len(want) || len(got) != crossings {
-		t.Fatalf("%d generated events, %d recorded, want %d", len(got), len(want), crossings)
+	generated, _ := collect(t, src, Config{Menus: []*trigger.Menu{m}, Workers: 2})
+	stream, err := OpenStream(path)
+	if err != nil {
+		t.Fatal(err)
 	}
+	defer stream.Close()
+	replayed, _ := collect(t, stream, Config{Menus: []*trigger.Menu{m}, Workers: 2})
 	dimuon := m.RuleIndex("dimuon-z")
 	fired := 0
-	for i := range got {
-		g, w := got[i], want[i]
-		if g.orbit != w.orbit || g.bcid != w.bcid || g.accept != w.accept || !reflect.DeepEqual(g.passed, w.passed) {
-			t.Fatalf("event %d: generated %+v, recorded %+v", i, g, w)
+	for name, got := range map[string][]decided{"generated": generated, "replayed stream": replayed} {
+		if len(got) != len(want) || len(got) != crossings {
+			t.Fatalf("%d %s events, %d decided sequentially, want %d", len(got), name, len(want), crossings)
 		}
+		for i := range got {
+			g, w := got[i], want[i]
+			if g.orbit != w.orbit || g.bcid != w.bcid || g.accept != w.accept || !reflect.DeepEqual(g.passed, w.passed) {
+				t.Fatalf("event %d: %s %+v, sequential %+v", i, name, g, w)
+			}
+		}
+	}
+	for _, g := range generated {
 		if g.passed[dimuon] {
 			fired++
 		}
