@@ -229,6 +229,13 @@ func (g overlapGrid) Y(r int) float64    { return float64(r) }
 func (g overlapGrid) Min() float64       { return 0 }
 func (g overlapGrid) Max() float64       { return 1 }
 
+// overlapNumbersMaxRules is the largest menu whose overlap heat map has
+// each cell's value printed in it: beyond it a cell of the 700-pixel plot
+// is narrower than "0.00" at 7 points, and the numbers would overprint
+// each other (they are in report.json and report.root). Drawing them was
+// also most of the time the plots took for a 60-rule menu.
+const overlapNumbersMaxRules = 20
+
 func overlapPlot(r *Report) *plot.Plot {
 	ov := r.Overlap
 	p := plot.New()
@@ -242,6 +249,9 @@ func overlapPlot(r *Report) *plot.Plot {
 	var lab plotter.XYLabels
 	for i, name := range ov.Rules {
 		ticks = append(ticks, plot.Tick{Value: float64(i), Label: name})
+		if n > overlapNumbersMaxRules {
+			continue
+		}
 		for j := range n {
 			lab.XYs = append(lab.XYs, plotter.XY{X: float64(i), Y: float64(j)})
 			lab.Labels = append(lab.Labels, fmt.Sprintf("%.2f", ov.PassedFraction[i][j]))
@@ -251,6 +261,9 @@ func overlapPlot(r *Report) *plot.Plot {
 	p.X.Tick.Label.Rotation = math.Pi / 2
 	p.X.Tick.Label.XAlign, p.X.Tick.Label.YAlign = -1, -0.5
 	p.X.Min, p.X.Max, p.Y.Min, p.Y.Max = -0.5, float64(n)-0.5, -0.5, float64(n)-0.5
+	if len(lab.XYs) == 0 {
+		return p
+	}
 	if labels, err := plotter.NewLabels(lab); err == nil {
 		for i := range labels.TextStyle {
 			labels.TextStyle[i].Font.Size = vg.Points(7)
