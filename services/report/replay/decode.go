@@ -27,6 +27,11 @@ type slot struct {
 	muon  pb.Fragment_Muon
 	muonP pb.MuonPayload
 	hits  []pb.MuonHit
+	// fused is set when the fragment's calorimeter payload was decoded
+	// straight into towers (fuser.fuse): f then has a nil Payload, and
+	// towers holds the towers fill makes of it.
+	fused  bool
+	towers []towerWord
 }
 
 // fragmentPool hands out reusable fragments. It is safe for concurrent
@@ -63,10 +68,9 @@ func (p *fragmentPool) grow() {
 		s := &block[i]
 		s.calo.Calo = &s.caloP
 		s.muon.Muon = &s.muonP
-		// Room for a typical fragment's towers up front, so that slots
-		// seldom grow while a replay warms up.
-		s.caloP.Towers = make([]uint32, 0, 96)
-		s.caloP.EtCounts = make([]uint32, 0, 96)
+		// No room for towers up front: a stream's calorimeter slots fill
+		// towers (fuser.fuse) and leave the arrays empty; each slot's
+		// storage grows to what it is given.
 		p.index[&s.f] = s
 		p.free = append(p.free, s)
 	}
@@ -95,6 +99,32 @@ func (p *fragmentPool) putAll(fs []*pb.Fragment) {
 	p.mu.Unlock()
 }
 
+// slotsOf appends to dst the slots of fragments fs under one lock. Every
+// fragment must have come from p: it panics otherwise, as that would lose
+// the fragment's content.
+func (p *fragmentPool) slotsOf(dst []*slot, fs []*pb.Fragment) []*slot {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	for _, f := range fs {
+		s, ok := p.index[f]
+		if !ok {
+			panic("replay: fragment not from the pool")
+		}
+		dst = append(dst, s)
+	}
+	return dst
+}
+
+// putSlots returns slots to the pool under one lock.
+func (p *fragmentPool) putSlots(ss []*slot) {
+	if len(ss) == 0 {
+		return
+	}
+	p.mu.Lock()
+	p.free = append(p.free, ss...)
+	p.mu.Unlock()
+}
+
 // cache returns a slotCache of p.
 func (p *fragmentPool) cache() *slotCache { return &slotCache{pool: p} }
 
@@ -115,6 +145,7 @@ func (c *slotCache) get() *slot {
 	n := len(c.free) - 1
 	s := c.free[n]
 	c.free = c.free[:n]
+	s.fused = false
 	return s
 }
 
@@ -136,6 +167,12 @@ type batchInfo struct {
 // fields instead of keeping them. On error the fragments taken so far are
 // returned to the pool and out is returned unchanged.
 func decodeBatch(data []byte, pool *slotCache, out []*pb.Fragment) ([]*pb.Fragment, batchInfo, error) {
+	return decodeBatchFunc(data, pool, out, decodeFragment)
+}
+
+// decodeBatchFunc is decodeBatch with each Fragment message decoded into
+// its slot by decode.
+func decodeBatchFunc(data []byte, pool *slotCache, out []*pb.Fragment, decode func([]byte, *slot) error) ([]*pb.Fragment, batchInfo, error) {
 	var info batchInfo
 	start := len(out)
 	fail := func(what string) ([]*pb.Fragment, batchInfo, error) {
@@ -172,7 +209,7 @@ func decodeBatch(data []byte, pool *slotCache, out []*pb.Fragment) ([]*pb.Fragme
 			}
 			data = data[n:]
 			s := pool.get()
-			if err := decodeFragment(b, s); err != nil {
+			if err := decode(b, s); err != nil {
 				pool.put(&s.f)
 				return fail(err.Error())
 			}

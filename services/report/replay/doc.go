@@ -11,7 +11,10 @@
 // caller's sink. A stream is read ahead of the feeding goroutine: one
 // goroutine reads and decompresses the file, and as many goroutines as
 // workers decode its fragment batches and verify every fragment's
-// checksum, so that the feeder only builds (builder.Builder.AddChecked).
+// checksum, so that the feeder only builds (builder.Builder.AddChecked);
+// a calorimeter fragment in the readout's canonical layout is decoded,
+// checksummed and reduced to the towers the selection sees in one pass
+// over its packed lists (fuse.go).
 // Because prescale counters see the events in that order, and because
 // nothing depends on timing or the number of workers, the same input gives
 // the same decisions, bit for bit.

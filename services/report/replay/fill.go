@@ -56,45 +56,104 @@ func (t *towerTable) fill(fragments []*pb.Fragment, lumiSlice uint32, ev *trigge
 	ev.Towers, ev.GridTowers, ev.MuonHits = ev.Towers[:0], ev.GridTowers[:0], ev.MuonHits[:0]
 	total := 0
 	for _, f := range fragments {
-		switch p := f.Payload.(type) {
-		case *pb.Fragment_Calo:
-			total += min(len(p.Calo.Towers), len(p.Calo.EtCounts))
-		case *pb.Fragment_Muon:
-			for _, h := range p.Muon.Hits {
-				ev.MuonHits = append(ev.MuonHits, trigger.MuonHit{Station: int(h.Station), X: float64(h.XMm), Y: float64(h.YMm), Z: float64(h.ZMm)})
-			}
-		}
+		total += t.countPayload(f, ev)
 	}
 	if t.wide != nil {
 		t.fillWide(fragments, total, ev)
 		return
 	}
-	out := ev.GridTowers
-	if cap(out) < total {
-		out = make([]trigger.GridTower, 0, total+total/4)
-	}
-	out = out[:total]
-	cells := t.cells
+	out := growTowers(ev.GridTowers, total)
 	j := 0
 	for _, f := range fragments {
-		c := f.GetCalo()
-		if c == nil {
-			continue
-		}
-		counts := c.EtCounts
-		towers := c.Towers[:min(len(c.Towers), len(counts))]
-		counts = counts[:len(towers)]
-		for i, idx := range towers {
-			if counts[i] == 0 || int(idx) >= len(cells) {
-				continue
-			}
-			cell := cells[idx]
-			// float64(counts) * least count, as Geometry.ET computes it.
-			out[j] = trigger.GridTower{ET: float64(counts[i]) * t.lsb, IEta: cell.ieta, IPhi: cell.iphi, Layer: cell.layer}
-			j++
+		if c := f.GetCalo(); c != nil {
+			j += t.gridOf(c, out[j:])
 		}
 	}
 	ev.GridTowers = out[:j]
+}
+
+// fillSlots is fill for the fragments of slots; the towers of fused
+// slots (fuser.fuse), already checked against the table, only have their
+// cells looked up. t must be the grid table the slots were fused with.
+func (t *towerTable) fillSlots(slots []*slot, lumiSlice uint32, ev *trigger.Event) {
+	ev.LumiSlice = lumiSlice
+	ev.Towers, ev.GridTowers, ev.MuonHits = ev.Towers[:0], ev.GridTowers[:0], ev.MuonHits[:0]
+	total := 0
+	for _, s := range slots {
+		if s.fused {
+			total += len(s.towers)
+			continue
+		}
+		total += t.countPayload(&s.f, ev)
+	}
+	out := growTowers(ev.GridTowers, total)
+	j := 0
+	for _, s := range slots {
+		if s.fused {
+			j += t.gridOfWords(s.towers, out[j:])
+			continue
+		}
+		if c := s.f.GetCalo(); c != nil {
+			j += t.gridOf(c, out[j:])
+		}
+	}
+	ev.GridTowers = out[:j]
+}
+
+// countPayload appends the muon hits of f to ev and returns the number
+// of tower and count pairs of its calorimeter payload, a bound on its
+// towers.
+func (t *towerTable) countPayload(f *pb.Fragment, ev *trigger.Event) int {
+	switch p := f.Payload.(type) {
+	case *pb.Fragment_Calo:
+		return min(len(p.Calo.Towers), len(p.Calo.EtCounts))
+	case *pb.Fragment_Muon:
+		for _, h := range p.Muon.Hits {
+			ev.MuonHits = append(ev.MuonHits, trigger.MuonHit{Station: int(h.Station), X: float64(h.XMm), Y: float64(h.YMm), Z: float64(h.ZMm)})
+		}
+	}
+	return 0
+}
+
+// growTowers returns out resliced to n towers, reallocated when too
+// small.
+func growTowers(out []trigger.GridTower, n int) []trigger.GridTower {
+	if cap(out) < n {
+		out = make([]trigger.GridTower, 0, n+n/4)
+	}
+	return out[:n]
+}
+
+// gridOfWords writes the grid towers of a fused slot's towers to out,
+// which has room for them, and returns their number.
+func (t *towerTable) gridOfWords(tws []towerWord, out []trigger.GridTower) int {
+	cells := t.cells
+	out = out[:len(tws)]
+	for i, w := range tws {
+		cell := cells[w&0xffff]
+		out[i] = trigger.GridTower{ET: float64(w>>16) * t.lsb, IEta: cell.ieta, IPhi: cell.iphi, Layer: cell.layer}
+	}
+	return len(tws)
+}
+
+// gridOf writes the grid towers of c to out, which has room for one per
+// pair, and returns their number.
+func (t *towerTable) gridOf(c *pb.CaloPayload, out []trigger.GridTower) int {
+	cells := t.cells
+	counts := c.EtCounts
+	towers := c.Towers[:min(len(c.Towers), len(counts))]
+	counts = counts[:len(towers)]
+	j := 0
+	for i, idx := range towers {
+		if counts[i] == 0 || int(idx) >= len(cells) {
+			continue
+		}
+		cell := cells[idx]
+		// float64(counts) * least count, as Geometry.ET computes it.
+		out[j] = trigger.GridTower{ET: float64(counts[i]) * t.lsb, IEta: cell.ieta, IPhi: cell.iphi, Layer: cell.layer}
+		j++
+	}
+	return j
 }
 
 // fillWide is fill's calorimeter part for a wide geometry.

@@ -46,11 +46,31 @@ func physicsMenu(t testing.TB) *trigger.Menu {
 }
 
 // recordStream writes crossings of gen through the readout emulator into
-// a stream file, with the truth of every crossing when truth is set.
+// a stream file, with the truth of every crossing when truth is set; the
+// sources are the calorimeter ones.
 func recordStream(t testing.TB, gen detector.Generator, part *detector.Partition, crossings uint64, truth bool, faults ...emulator.Fault) string {
 	t.Helper()
+	return record(t, gen, part, nil, crossings, truth, 32, faults)
+}
+
+// recordReadout is recordStream with every source of part, muon sources
+// included and filled as the readout fills them, batches of batch
+// crossings, and no truth.
+func recordReadout(t testing.TB, gen detector.Generator, part *detector.Partition, crossings uint64, batch uint32, faults ...emulator.Fault) string {
+	t.Helper()
+	return record(t, gen, part, part, crossings, false, batch, faults)
+}
+
+// record writes the stream; with muons set, it records every source of
+// part and lets the emulator fill the muon ones.
+func record(t testing.TB, gen detector.Generator, part, muons *detector.Partition, crossings uint64, truth bool, batch uint32, faults []emulator.Fault) string {
+	t.Helper()
+	ids := part.SourceIDs()
+	if muons != nil {
+		ids = part.AllSourceIDs()
+	}
 	path := filepath.Join(t.TempDir(), "replay.bss")
-	h := &pb.StreamHeader{Run: 1, Seed: 9, SourceIds: part.SourceIDs(), Partitions: 1, BatchCrossings: 32,
+	h := &pb.StreamHeader{Run: 1, Seed: 9, SourceIds: ids, Partitions: 1, BatchCrossings: batch,
 		Generator: "test", Detector: string(detector.BuiltinDescriptionYAML())}
 	create := recording.Create
 	if truth {
@@ -63,7 +83,7 @@ func recordStream(t testing.TB, gen detector.Generator, part *detector.Partition
 	if truth {
 		gen = recording.RecordTruth(gen, w)
 	}
-	emu, err := emulator.New(emulator.Config{Run: 1, Seed: 9, Crossings: crossings, Faults: faults}, gen, part.SourceIDs(),
+	emu, err := emulator.New(emulator.Config{Run: 1, Seed: 9, Crossings: crossings, BatchCrossings: int(batch), Faults: faults, Partition: muons}, gen, ids,
 		emulator.FileSink{W: w}, prometheus.NewRegistry())
 	if err != nil {
 		t.Fatal(err)

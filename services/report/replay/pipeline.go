@@ -153,7 +153,7 @@ func Run(ctx context.Context, src Source, cfg Config, sink func(*Event) error) (
 	}
 
 	pool := newFragmentPool()
-	fd := &feeder{pool: pool, cache: pool.cache(), decoders: cfg.Workers, truth: make(map[uint64]*recording.TruthRecord),
+	fd := &feeder{pool: pool, cache: pool.cache(), table: table, decoders: cfg.Workers, truth: make(map[uint64]*recording.TruthRecord),
 		free: free, ordered: ordered, work: work, ctx: ctx, lumiOrbits: lumiOrbits}
 	b, err := builder.New(bc, fd.emit)
 	if err != nil {
@@ -268,7 +268,7 @@ type chunkEvent struct {
 	missing    int
 	towers     int
 	truth      *recording.TruthRecord
-	frags      []*pb.Fragment
+	slots      []*slot // of the event's fragments
 }
 
 // chunk carries up to cap(events) events from the feeder through a
@@ -293,6 +293,7 @@ func newChunk(size int, nrules []int, nvalues int) *chunk {
 // selectors and features; it is used by one goroutine.
 type worker struct {
 	table  *towerTable
+	frags  []*pb.Fragment // scratch, for a wide table
 	sels   []*trigger.Selector
 	feats  []trigger.Features
 	ev     trigger.Event
@@ -304,7 +305,16 @@ func (w *worker) process(c *chunk) {
 	nv := len(w.values)
 	for i := range c.n {
 		e := &c.events[i]
-		w.table.fill(e.frags, e.lumi, &w.ev)
+		if w.table.wide != nil {
+			// A wide table has no fused slots; fill reads the fragments.
+			w.frags = w.frags[:0]
+			for _, s := range e.slots {
+				w.frags = append(w.frags, &s.f)
+			}
+			w.table.fill(w.frags, e.lumi, &w.ev)
+		} else {
+			w.table.fillSlots(e.slots, e.lumi, &w.ev)
+		}
 		e.towers = w.ev.NumTowers()
 		for m, sel := range w.sels {
 			f := &w.feats[m]
@@ -328,8 +338,9 @@ type feeder struct {
 	ctx        context.Context
 	b          *builder.Builder
 	pool       *fragmentPool
-	cache      *slotCache // the feeder's own, for sources that make fragments
-	decoders   int        // goroutines a source may decode with
+	cache      *slotCache  // the feeder's own, for sources that make fragments
+	table      *towerTable // for a source's decoders
+	decoders   int         // goroutines a source may decode with
 	truth      map[uint64]*recording.TruthRecord
 	spare      []*recording.TruthRecord
 	free       chan *chunk
@@ -407,7 +418,9 @@ func (fd *feeder) emit(be *builder.Event) {
 	e := &c.events[c.n]
 	e.orbit, e.bcid, e.flags, e.missing = be.Orbit, be.Bcid, be.Flags, len(be.Missing)
 	e.lumi = uint32(be.Orbit/fd.lumiOrbits) + 1
-	e.frags = append(e.frags[:0], be.Fragments...)
+	// The slots, looked up once here, carry what the workers read (a
+	// fused fragment's towers) and go back to the pool without a lookup.
+	e.slots = fd.pool.slotsOf(e.slots[:0], be.Fragments)
 	key := crossingKey(be.Orbit, be.Bcid)
 	e.truth = fd.truth[key]
 	if e.truth != nil {
@@ -427,8 +440,8 @@ func (fd *feeder) takeChunk() *chunk {
 	case c := <-fd.free:
 		for i := range c.events {
 			e := &c.events[i]
-			fd.pool.putAll(e.frags)
-			e.frags = e.frags[:0]
+			fd.pool.putSlots(e.slots)
+			e.slots = e.slots[:0]
 			if e.truth != nil {
 				fd.spare = append(fd.spare, e.truth)
 				e.truth = nil

@@ -77,19 +77,15 @@ func (j *readJob) addTruth(rec *recording.TruthRecord) {
 func (j *readJob) full() bool { return len(j.batches) >= jobBatches || len(j.data) >= jobBytes }
 
 // decode decodes every batch of j into fragments from cache and checks
-// their checksums with sum.
-func (j *readJob) decode(cache *slotCache, sum *pb.Checksummer) {
+// their checksums, with fz.
+func (j *readJob) decode(cache *slotCache, fz *fuser) {
 	for i := range j.batches {
 		b := &j.batches[i]
 		b.first = len(j.frags)
 		var err error
-		j.frags, _, err = decodeBatch(j.data[b.start:b.end], cache, j.frags)
+		j.frags, j.intact, err = fz.decodeBatch(j.data[b.start:b.end], cache, j.frags, j.intact)
 		b.n = len(j.frags) - b.first
 		b.bad = err != nil
-		// Checked while the batch's fragments are still in cache.
-		for _, f := range j.frags[b.first:] {
-			j.intact = append(j.intact, sum.Sum(f) == f.Checksum)
-		}
 	}
 }
 
@@ -158,9 +154,9 @@ func (s *StreamSource) feed(ctx context.Context, fd *feeder) error {
 	for range decoders {
 		wg.Go(func() {
 			cache := fd.pool.cache()
-			var sum pb.Checksummer
+			fz := newFuser(fd.table)
 			for j := range work {
-				j.decode(cache, &sum)
+				j.decode(cache, fz)
 				close(j.ready)
 			}
 		})

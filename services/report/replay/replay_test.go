@@ -6,14 +6,12 @@ import (
 	"io"
 	"math"
 	"os"
-	"path/filepath"
 	"reflect"
 	"runtime"
 	"strings"
 	"testing"
 	"time"
 
-	"github.com/prometheus/client_golang/prometheus"
 	"google.golang.org/protobuf/proto"
 
 	"github.com/bunchsieve/bunchsieve/builder"
@@ -341,24 +339,7 @@ func TestGeneratedMuonsMatchRecordedReadout(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	path := filepath.Join(t.TempDir(), "muons.bss")
-	w, err := recording.Create(path, &pb.StreamHeader{Run: 1, Seed: seed, SourceIds: part.AllSourceIDs(), Partitions: 1, BatchCrossings: 32,
-		Generator: "test", Detector: string(detector.BuiltinDescriptionYAML())})
-	if err != nil {
-		t.Fatal(err)
-	}
-	emu, err := emulator.New(emulator.Config{Run: 1, Seed: seed, Crossings: crossings, Partition: part}, gen, part.AllSourceIDs(),
-		emulator.FileSink{W: w}, prometheus.NewRegistry())
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := emu.Run(context.Background()); err != nil {
-		t.Fatal(err)
-	}
-	w.AddCrossings(crossings)
-	if err := w.Close(); err != nil {
-		t.Fatal(err)
-	}
+	path := recordReadout(t, gen, part, crossings, 32)
 	m := physicsMenu(t)
 	want := sequential(t, path, m)
 

@@ -1,0 +1,273 @@
+package replay
+
+import (
+	"encoding/binary"
+	"hash/crc32"
+	"slices"
+
+	"google.golang.org/protobuf/encoding/protowire"
+
+	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+)
+
+// Decoding a calorimeter fragment in one pass. Decoding the packed tower
+// and count lists into arrays, checksumming the arrays, then turning them
+// into grid towers reads every number three times. For a fragment in the
+// readout's canonical layout (as proto.Marshal writes it: the header
+// fields and the checksum, then one calorimeter payload holding the
+// towers packed, then the counts packed, each at most once; the order of
+// the fragment's own fields does not matter) the decoding goroutine reads
+// the two lists once, in step, feeding the checksum and keeping the
+// towers the selection will see as towerWords; the worker turns those
+// into GridTowers through the table as it concatenates an event's.
+// Anything else (a muon payload, unpacked or split lists, unknown fields,
+// a payload given twice, a count beyond 16 bits, bad encodings) goes
+// through decodeFragment, Checksummer.Sum and towerTable.fill, the
+// reference path, so the outcome never depends on which path a fragment
+// took.
+
+// castagnoli is the CRC-32C table; crc32 uses the processor's CRC
+// instructions for it where there are any.
+var castagnoli = crc32.MakeTable(crc32.Castagnoli)
+
+// fuseBuf is the size of the scratch a fuser streams canonical content
+// through on its way to the CRC.
+const fuseBuf = 1024
+
+// fuser decodes fragments and checks their checksums, through the fused
+// pass where the layout allows it. Its scratch is a field rather than a
+// local: crc32 calls through a function value, so a local buffer would
+// escape and be allocated per call. A fuser is used by one goroutine.
+type fuser struct {
+	// table gives the towers; nil disables the fused pass (a geometry
+	// too wide for GridTowers or for a towerWord's index).
+	table *towerTable
+	sum   pb.Checksummer
+	buf   [fuseBuf]byte
+}
+
+// newFuser returns a fuser keeping the towers of t, or one that always
+// takes the reference path when t is nil, not a grid table, or larger
+// than a towerWord's index can address.
+func newFuser(t *towerTable) *fuser {
+	if t != nil && (t.wide != nil || len(t.cells) > 1<<16) {
+		t = nil
+	}
+	return &fuser{table: t}
+}
+
+// decodeBatch is decodeBatch for the decoding goroutines: it also
+// appends to intact, per fragment, whether its checksum matches its
+// content. On error out and intact are returned unchanged.
+func (fz *fuser) decodeBatch(data []byte, pool *slotCache, out []*pb.Fragment, intact []bool) ([]*pb.Fragment, []bool, error) {
+	start := len(intact)
+	out, _, err := decodeBatchFunc(data, pool, out, func(b []byte, s *slot) error {
+		ok, err := fz.decode(b, s)
+		intact = append(intact, ok)
+		return err
+	})
+	if err != nil {
+		intact = intact[:start]
+	}
+	return out, intact, err
+}
+
+// decode decodes one Fragment message into s and reports whether its
+// checksum matches its content.
+func (fz *fuser) decode(data []byte, s *slot) (intact bool, err error) {
+	if sum, ok := fz.fuse(data, s); ok {
+		return sum == s.f.Checksum, nil
+	}
+	s.fused = false
+	if err := decodeFragment(data, s); err != nil {
+		return false, err
+	}
+	return fz.sum.Sum(&s.f) == s.f.Checksum, nil
+}
+
+// fuse decodes a calorimeter fragment in the canonical layout into s in
+// one pass and returns the CRC-32C of its canonical content, the value
+// Checksummer.Sum gives. On success s.f holds the header fields and the
+// checksum, with a nil Payload, and s.towers the towers towerTable.fill
+// makes of its payload. It reports false, with s in an unspecified
+// state, for any other layout.
+func (fz *fuser) fuse(data []byte, s *slot) (uint32, bool) {
+	if fz.table == nil {
+		return 0, false
+	}
+	var hdr [10]uint64 // by field number: 1-6 and 9 are used
+	var payload []byte
+	seen := false
+	for len(data) > 0 {
+		// Fields 1 to 15 have one-byte tags; a longer tag is an unknown
+		// field.
+		tag := data[0]
+		data = data[1:]
+		num, typ := tag>>3, protowire.Type(tag&7)
+		switch {
+		case typ == protowire.VarintType && (num >= 1 && num <= 6 || num == 9):
+			v, n := protowire.ConsumeVarint(data)
+			if n < 0 {
+				return 0, false
+			}
+			data = data[n:]
+			hdr[num] = v // a later occurrence wins, as protobuf decodes
+		case typ == protowire.BytesType && num == 7 && !seen:
+			v, n := protowire.ConsumeBytes(data)
+			if n < 0 {
+				return 0, false
+			}
+			data = data[n:]
+			payload, seen = v, true
+		default:
+			return 0, false
+		}
+	}
+	if !seen {
+		return 0, false
+	}
+	towers, counts, ok := splitCalo(payload)
+	if !ok {
+		return 0, false
+	}
+
+	f := &s.f
+	f.SourceId, f.Run, f.Orbit, f.Bcid = uint32(hdr[1]), uint32(hdr[2]), hdr[3], uint32(hdr[4])
+	f.TimestampNs, f.Status, f.Checksum = int64(hdr[5]), uint32(hdr[6]), uint32(hdr[9])
+	f.Payload = nil
+
+	le := binary.LittleEndian
+	buf := fz.buf[:]
+	// The header as Checksummer.Sum lays it out.
+	le.PutUint32(buf[0:], f.SourceId)
+	le.PutUint32(buf[4:], f.Run)
+	le.PutUint64(buf[8:], f.Orbit)
+	le.PutUint32(buf[16:], f.Bcid)
+	le.PutUint64(buf[20:], uint64(f.TimestampNs))
+	le.PutUint32(buf[28:], f.Status)
+	n := 32
+	var sum uint32
+
+	// Every value takes at least a byte, so the shorter list's length
+	// bounds the number of pairs.
+	out := slices.Grow(s.towers[:0], min(len(towers), len(counts)))
+	out = out[:cap(out)]
+	ncells := len(fz.table.cells)
+	j := 0
+	ti, ci := 0, 0
+	for ti < len(towers) && ci < len(counts) {
+		// packedNext by hand: it is too large for the compiler to inline.
+		var tw, ct uint32
+		if c := towers[ti]; c < 0x80 {
+			tw, ti = uint32(c), ti+1
+		} else if ti+1 < len(towers) && towers[ti+1] < 0x80 {
+			tw, ti = uint32(c&0x7f)|uint32(towers[ti+1])<<7, ti+2
+		} else if tw, ti = packedSlow(towers, ti); ti < 0 {
+			return 0, false
+		}
+		if c := counts[ci]; c < 0x80 {
+			ct, ci = uint32(c), ci+1
+		} else if ci+1 < len(counts) && counts[ci+1] < 0x80 {
+			ct, ci = uint32(c&0x7f)|uint32(counts[ci+1])<<7, ci+2
+		} else if ct, ci = packedSlow(counts, ci); ci < 0 {
+			return 0, false
+		}
+		if n+8 > len(buf) {
+			sum, n = crc32.Update(sum, castagnoli, buf[:n]), 0
+		}
+		// The pair as two little-endian uint32s, in one store.
+		le.PutUint64(buf[n:], uint64(tw)|uint64(ct)<<32)
+		n += 8
+		// fill's rules: zero counts and indices off the table give no
+		// tower.
+		if ct != 0 && int(tw) < ncells {
+			if ct > 0xffff {
+				// Beyond any readout's range; a towerWord cannot hold it.
+				return 0, false
+			}
+			out[j] = towerWord(tw | ct<<16)
+			j++
+		}
+	}
+	// Surplus towers go in with a zero count, surplus counts alone, as
+	// Checksummer.Sum has them.
+	for ti < len(towers) {
+		var tw uint32
+		if tw, ti = packedNext(towers, ti); ti < 0 {
+			return 0, false
+		}
+		if n+8 > len(buf) {
+			sum, n = crc32.Update(sum, castagnoli, buf[:n]), 0
+		}
+		le.PutUint32(buf[n:], tw)
+		le.PutUint32(buf[n+4:], 0)
+		n += 8
+	}
+	for ci < len(counts) {
+		var ct uint32
+		if ct, ci = packedNext(counts, ci); ci < 0 {
+			return 0, false
+		}
+		if n+4 > len(buf) {
+			sum, n = crc32.Update(sum, castagnoli, buf[:n]), 0
+		}
+		le.PutUint32(buf[n:], ct)
+		n += 4
+	}
+	s.towers = out[:j]
+	s.fused = true
+	return crc32.Update(sum, castagnoli, buf[:n]), true
+}
+
+// splitCalo splits a CaloPayload encoding in the canonical layout (the
+// towers packed, then the counts packed, each at most once and nothing
+// else) into its two packed lists; ok is false for any other layout.
+func splitCalo(p []byte) (towers, counts []byte, ok bool) {
+	const towersTag, countsTag = 1<<3 | byte(protowire.BytesType), 2<<3 | byte(protowire.BytesType)
+	if len(p) > 0 && p[0] == towersTag {
+		v, n := protowire.ConsumeBytes(p[1:])
+		if n < 0 {
+			return nil, nil, false
+		}
+		towers, p = v, p[1+n:]
+	}
+	if len(p) > 0 && p[0] == countsTag {
+		v, n := protowire.ConsumeBytes(p[1:])
+		if n < 0 {
+			return nil, nil, false
+		}
+		counts, p = v, p[1+n:]
+	}
+	return towers, counts, len(p) == 0
+}
+
+// packedNext decodes the varint at b[i:], i < len(b), truncated to 32
+// bits as protobuf decodes uint32, and returns it with the index after
+// it, or with -1 for a bad varint. One- and two-byte varints, nearly all
+// of a tower list, are decoded inline.
+func packedNext(b []byte, i int) (uint32, int) {
+	c := b[i]
+	if c < 0x80 {
+		return uint32(c), i + 1
+	}
+	if i+1 < len(b) && b[i+1] < 0x80 {
+		return uint32(c&0x7f) | uint32(b[i+1])<<7, i + 2
+	}
+	return packedSlow(b, i)
+}
+
+func packedSlow(b []byte, i int) (uint32, int) {
+	v, k := protowire.ConsumeVarint(b[i:])
+	if k < 0 {
+		return 0, -1
+	}
+	return uint32(v), i + k
+}
+
+// towerWord is a tower the selection sees: its global index on the
+// table in the low 16 bits, its nonzero ET in least counts in the high
+// 16. A quarter of the size of a GridTower, which matters more than the
+// table look-up it leaves to the workers: a slot's towers are written by
+// a decoding goroutine and read by a worker well after, from memory
+// rather than cache, so the replay's time goes with their bytes.
+type towerWord uint32
