@@ -33,15 +33,9 @@ const (
 	batchFragments = 5
 	batchEnd       = 6
 
-	fragSourceID  = 1
-	fragRun       = 2
-	fragOrbit     = 3
-	fragBcid      = 4
-	fragTimestamp = 5
-	fragStatus    = 6
-	fragCalo      = 7
-	fragMuon      = 8
-	fragChecksum  = 9
+	// Fragment's varint fields are set by pb.SetFragmentVarint.
+	fragCalo = 7
+	fragMuon = 8
 
 	caloTowers = 1
 	caloCounts = 2
@@ -240,22 +234,7 @@ func (h *heldFragment) fast(raw []byte) bool {
 			return false
 		}
 		raw = raw[n:]
-		switch num {
-		case fragSourceID:
-			f.SourceId = uint32(v)
-		case fragRun:
-			f.Run = uint32(v)
-		case fragOrbit:
-			f.Orbit = v
-		case fragBcid:
-			f.Bcid = uint32(v)
-		case fragTimestamp:
-			f.TimestampNs = int64(v)
-		case fragStatus:
-			f.Status = uint32(v)
-		case fragChecksum:
-			f.Checksum = uint32(v)
-		default:
+		if !pb.SetFragmentVarint(f, num, v) {
 			return false
 		}
 	}

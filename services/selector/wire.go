@@ -684,22 +684,7 @@ func (c *caloFragment) fast(raw []byte) bool {
 			return false
 		}
 		raw = raw[n:]
-		switch num {
-		case 1:
-			f.SourceId = uint32(v)
-		case 2:
-			f.Run = uint32(v)
-		case 3:
-			f.Orbit = v
-		case 4:
-			f.Bcid = uint32(v)
-		case 5:
-			f.TimestampNs = int64(v)
-		case 6:
-			f.Status = uint32(v)
-		case 9:
-			f.Checksum = uint32(v)
-		default:
+		if !pb.SetFragmentVarint(f, num, v) {
 			return false
 		}
 	}

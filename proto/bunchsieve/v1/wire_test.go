@@ -21,3 +21,24 @@ func TestConsumeTagMatchesProto(t *testing.T) {
 		}
 	}
 }
+
+// SetFragmentVarint sets each varint field as proto.Unmarshal decodes it,
+// wide values included, and refuses the other field numbers.
+func TestSetFragmentVarintMatchesProto(t *testing.T) {
+	for num := protowire.Number(1); num <= 12; num++ {
+		for _, v := range []uint64{0, 1, 300, 1<<32 + 5, 1<<63 + 7} {
+			var got Fragment
+			ok := SetFragmentVarint(&got, num, v)
+			b := protowire.AppendVarint(protowire.AppendTag(nil, num, protowire.VarintType), v)
+			var want Fragment
+			err := proto.Unmarshal(b, &want)
+			isVarint := num <= 6 || num == 9
+			if ok != isVarint {
+				t.Fatalf("field %d: ok %v", num, ok)
+			}
+			if ok && (err != nil || !proto.Equal(&got, &want)) {
+				t.Fatalf("field %d = %d: got %v, proto %v (%v)", num, v, &got, &want, err)
+			}
+		}
+	}
+}

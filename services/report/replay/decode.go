@@ -243,22 +243,7 @@ func decodeFragment(data []byte, s *slot) error {
 				return errors.New("bad varint in fragment")
 			}
 			data = data[n:]
-			switch num {
-			case 1:
-				f.SourceId = uint32(v)
-			case 2:
-				f.Run = uint32(v)
-			case 3:
-				f.Orbit = v
-			case 4:
-				f.Bcid = uint32(v)
-			case 5:
-				f.TimestampNs = int64(v)
-			case 6:
-				f.Status = uint32(v)
-			case 9:
-				f.Checksum = uint32(v)
-			}
+			pb.SetFragmentVarint(f, num, v)
 		case typ == protowire.BytesType && num == 7:
 			b, n := protowire.ConsumeBytes(data)
 			if n < 0 {
