@@ -65,13 +65,13 @@ func NewRestamper(ds *Dataset) *Restamper {
 	return r
 }
 
-// fragFields is what the restamper reads of one Fragment encoding.
+// fragFields is what the restamper reads of one Fragment encoding: the
+// header fields, set by pb.SetFragmentVarint, and the calorimeter
+// payload's bytes as they are.
 type fragFields struct {
-	source, run, bcid, status, checksum uint32
-	orbit                               uint64
-	ts                                  int64
-	payload                             []byte // the calo field's value
-	hasPayload                          bool
+	hdr        pb.Fragment // scalar fields only; Payload stays nil
+	payload    []byte      // the calo field's value
+	hasPayload bool
 }
 
 // Restamp appends to dst batch b as lap lap sends it. Lap 0 is b itself.
@@ -141,24 +141,25 @@ func (r *Restamper) fragment(dst, f []byte, orbits uint64) ([]byte, error) {
 	if !ok {
 		return r.slow(dst, f, orbits)
 	}
-	orbit := ff.orbit + orbits
-	ts := ff.ts + r.clock.Nominal(orbit, ff.bcid) - r.clock.Nominal(ff.orbit, ff.bcid)
+	h := &ff.hdr
+	orbit := h.Orbit + orbits
+	ts := h.TimestampNs + r.clock.Nominal(orbit, h.Bcid) - r.clock.Nominal(h.Orbit, h.Bcid)
 	size := sumFixed + 8*towers + 4*max(counts-towers, 0)
-	sum := ff.checksum ^ r.crcDelta(ff.orbit^orbit, uint64(ff.ts^ts), size)
+	sum := h.Checksum ^ r.crcDelta(h.Orbit^orbit, uint64(h.TimestampNs^ts), size)
 
-	n := varintField(uint64(ff.source)) + varintField(uint64(ff.run)) + varintField(orbit) + varintField(uint64(ff.bcid)) +
-		varintField(uint64(ts)) + varintField(uint64(ff.status)) + varintField(uint64(sum))
+	n := varintField(uint64(h.SourceId)) + varintField(uint64(h.Run)) + varintField(orbit) + varintField(uint64(h.Bcid)) +
+		varintField(uint64(ts)) + varintField(uint64(h.Status)) + varintField(uint64(sum))
 	if ff.hasPayload {
 		n += 1 + protowire.SizeBytes(len(ff.payload))
 	}
 	dst = protowire.AppendTag(dst, 5, protowire.BytesType)
 	dst = protowire.AppendVarint(dst, uint64(n))
-	dst = appendVarint(dst, 1, uint64(ff.source))
-	dst = appendVarint(dst, 2, uint64(ff.run))
+	dst = appendVarint(dst, 1, uint64(h.SourceId))
+	dst = appendVarint(dst, 2, uint64(h.Run))
 	dst = appendVarint(dst, 3, orbit)
-	dst = appendVarint(dst, 4, uint64(ff.bcid))
+	dst = appendVarint(dst, 4, uint64(h.Bcid))
 	dst = appendVarint(dst, 5, uint64(ts))
-	dst = appendVarint(dst, 6, uint64(ff.status))
+	dst = appendVarint(dst, 6, uint64(h.Status))
 	// The oneof payload last, where proto.Marshal puts it.
 	dst = appendVarint(dst, 9, uint64(sum))
 	if ff.hasPayload {
@@ -203,22 +204,7 @@ func (r *Restamper) read(f []byte, ff *fragFields) (towers, counts int, ok bool)
 			return 0, 0, false
 		}
 		f = f[n:]
-		switch num {
-		case 1:
-			ff.source = uint32(v)
-		case 2:
-			ff.run = uint32(v)
-		case 3:
-			ff.orbit = v
-		case 4:
-			ff.bcid = uint32(v)
-		case 5:
-			ff.ts = int64(v)
-		case 6:
-			ff.status = uint32(v)
-		case 9:
-			ff.checksum = uint32(v)
-		default:
+		if !pb.SetFragmentVarint(&ff.hdr, protowire.Number(num), v) {
 			return 0, 0, false
 		}
 	}
