@@ -2,9 +2,13 @@ package cli
 
 import (
 	"flag"
+	"fmt"
 	"math"
 	"net"
+	"os"
+	"runtime/pprof"
 	"strconv"
+	"sync"
 	"time"
 
 	"github.com/bunchsieve/bunchsieve/services/runconfig"
@@ -99,4 +103,31 @@ func checkHostPort(flagName, addr string) error {
 	}
 	_ = host
 	return nil
+}
+
+// startCPUProfile starts a CPU profile into the file at path and returns
+// the function that stops it and closes the file; that function may be
+// called more than once and reports the first call's error. An empty
+// path profiles nothing.
+func startCPUProfile(path string) (stop func() error, err error) {
+	if path == "" {
+		return func() error { return nil }, nil
+	}
+	f, err := os.Create(path)
+	if err != nil {
+		return nil, fmt.Errorf("cli: cpu profile: %w", err)
+	}
+	if err := pprof.StartCPUProfile(f); err != nil {
+		f.Close()
+		return nil, fmt.Errorf("cli: cpu profile: %w", err)
+	}
+	var once sync.Once
+	var closeErr error
+	return func() error {
+		once.Do(func() {
+			pprof.StopCPUProfile()
+			closeErr = f.Close()
+		})
+		return closeErr
+	}, nil
 }

@@ -47,6 +47,7 @@ func runReplay(ctx context.Context, e *env, args []string) error {
 	cl := fs.Float64("cl", 0.95, "confidence level of the efficiency intervals")
 	workers := fs.Int("workers", 2, "goroutines decoding fragments and computing features (the output does not depend on it)")
 	noProgress := fs.Bool("no-progress", false, "draw no progress bar even on a terminal")
+	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the replay and the report to `FILE`")
 	if err := parse(fs, args, 0); err != nil {
 		return err
 	}
@@ -111,6 +112,11 @@ func runReplay(ctx context.Context, e *env, args []string) error {
 		bar = rpt.NewProgress(e.stderr)
 		opts.Progress = bar.Update
 	}
+	stopProfile, err := startCPUProfile(*cpuProfile)
+	if err != nil {
+		return err
+	}
+	defer stopProfile() // on the early returns; a second call does nothing
 	rep, runErr := rpt.Run(ctx, src, opts)
 	if bar != nil && rep != nil {
 		bar.Done(rep.Processing.Crossings)
@@ -118,7 +124,11 @@ func runReplay(ctx context.Context, e *env, args []string) error {
 	if rep == nil {
 		return runErr
 	}
-	if err := rep.WriteFiles(*out); err != nil {
+	err = rep.WriteFiles(*out)
+	if perr := stopProfile(); err == nil {
+		err = perr
+	}
+	if err != nil {
 		return err
 	}
 	if err := rep.WriteTable(e.stdout); err != nil {

@@ -103,3 +103,23 @@ func TestReplayBadFlags(t *testing.T) {
 		t.Errorf("unknown rule: exit %d, %q", code, stderr)
 	}
 }
+
+// TestReplayCPUProfile: --cpuprofile writes a profile in pprof's format
+// (gzip-compressed, RFC 1952: it starts 0x1f 0x8b), and an unwritable
+// path is a one-line error before anything runs.
+func TestReplayCPUProfile(t *testing.T) {
+	dir := t.TempDir()
+	prof := filepath.Join(dir, "replay.prof")
+	code, _, stderr := runCLI(t, time.Minute, "replay", "--generate", "200", "--mu", "10", "--out", filepath.Join(dir, "out"), "--cpuprofile", prof)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	data, err := os.ReadFile(prof)
+	if err != nil || len(data) < 2 || data[0] != 0x1f || data[1] != 0x8b {
+		t.Fatalf("profile %d bytes, %v: not gzip", len(data), err)
+	}
+	code, _, stderr = runCLI(t, time.Minute, "replay", "--generate", "10", "--out", filepath.Join(dir, "out2"), "--cpuprofile", filepath.Join(dir, "missing", "p.prof"))
+	if code == 0 || strings.Count(stderr, "\n") != 1 || !strings.Contains(stderr, "cpu profile") {
+		t.Errorf("unwritable profile: exit %d, stderr %q", code, stderr)
+	}
+}
