@@ -156,6 +156,45 @@ func (fz *fuser) fuse(data []byte, s *slot) (uint32, bool) {
 	j := 0
 	ti, ci := 0, 0
 	for ti < len(towers) && ci < len(counts) {
+		if n+32 > len(buf) {
+			sum, n = crc32.Update(sum, castagnoli, buf[:n]), 0
+		}
+		// Four pairs at once where the next four towers are two-byte
+		// varints and the next four counts one-byte ones, as nearly all
+		// of a crossing's are (indices of 128 and up, counts below 32
+		// GeV): the continuation bits of eight tower bytes and four
+		// count bytes are tested in two words, with no branch per value.
+		if ti+8 <= len(towers) && ci+4 <= len(counts) {
+			tb, cb := le.Uint64(towers[ti:]), le.Uint32(counts[ci:])
+			if tb&0x8080808080808080 == 0x0080008000800080 && cb&0x80808080 == 0 {
+				t0 := uint32(tb)&0x7f | uint32(tb>>8)&0x7f<<7
+				t1 := uint32(tb>>16)&0x7f | uint32(tb>>24)&0x7f<<7
+				t2 := uint32(tb>>32)&0x7f | uint32(tb>>40)&0x7f<<7
+				t3 := uint32(tb>>48)&0x7f | uint32(tb>>56)&0x7f<<7
+				c0, c1, c2, c3 := cb&0xff, cb>>8&0xff, cb>>16&0xff, cb>>24
+				b := buf[n : n+32]
+				le.PutUint64(b[0:], uint64(t0)|uint64(c0)<<32)
+				le.PutUint64(b[8:], uint64(t1)|uint64(c1)<<32)
+				le.PutUint64(b[16:], uint64(t2)|uint64(c2)<<32)
+				le.PutUint64(b[24:], uint64(t3)|uint64(c3)<<32)
+				n += 32
+				// Zero counts and indices off the table give no tower.
+				o := out[j : j+4]
+				o[0] = towerWord(t0 | c0<<16)
+				j += keep(t0, c0, ncells)
+				o = out[j : j+3]
+				o[0] = towerWord(t1 | c1<<16)
+				j += keep(t1, c1, ncells)
+				o = out[j : j+2]
+				o[0] = towerWord(t2 | c2<<16)
+				j += keep(t2, c2, ncells)
+				o = out[j : j+1]
+				o[0] = towerWord(t3 | c3<<16)
+				j += keep(t3, c3, ncells)
+				ti, ci = ti+8, ci+4
+				continue
+			}
+		}
 		// packedNext by hand: it is too large for the compiler to inline.
 		var tw, ct uint32
 		if c := towers[ti]; c < 0x80 {
@@ -171,9 +210,6 @@ func (fz *fuser) fuse(data []byte, s *slot) (uint32, bool) {
 			ct, ci = uint32(c&0x7f)|uint32(counts[ci+1])<<7, ci+2
 		} else if ct, ci = packedSlow(counts, ci); ci < 0 {
 			return 0, false
-		}
-		if n+8 > len(buf) {
-			sum, n = crc32.Update(sum, castagnoli, buf[:n]), 0
 		}
 		// The pair as two little-endian uint32s, in one store.
 		le.PutUint64(buf[n:], uint64(tw)|uint64(ct)<<32)
@@ -217,6 +253,15 @@ func (fz *fuser) fuse(data []byte, s *slot) (uint32, bool) {
 	s.towers = out[:j]
 	s.fused = true
 	return crc32.Update(sum, castagnoli, buf[:n]), true
+}
+
+// keep is 1 when a tower of index tw and count ct is one the selection
+// sees: a nonzero count at an index on the table.
+func keep(tw, ct uint32, ncells int) int {
+	if ct != 0 && int(tw) < ncells {
+		return 1
+	}
+	return 0
 }
 
 // splitCalo splits a CaloPayload encoding in the canonical layout (the

@@ -280,12 +280,35 @@ func TestFuseLayouts(t *testing.T) {
 		Status: h.Status, Checksum: h.Checksum, Payload: ref.Payload}); string(want) != string(sealed) {
 		t.Fatal("caloFragment does not write the layout proto.Marshal writes")
 	}
+	// Runs long enough for the four-at-a-time path: two-byte towers
+	// (128..16383) and one-byte counts, with zero counts, indices past
+	// the table (10,240 cells) and a one- or two-byte value breaking
+	// some runs.
+	var runT, runC []uint32
+	for i := range 61 {
+		tw, ct := uint32(128+131*i), uint32(1+i%127)
+		switch i % 9 {
+		case 2:
+			ct = 0
+		case 5:
+			tw = 10240 + uint32(i)
+		case 7:
+			if i%2 == 1 {
+				tw = 100
+			} else {
+				ct = 200
+			}
+		}
+		runT, runC = append(runT, tw), append(runC, ct)
+	}
 	cases := []struct {
 		name  string
 		data  []byte
 		fused bool
 	}{
 		{"canonical", sealed, true},
+		{"long runs", caloFragment(h, cat(packed(1, runT), packed(2, runC))), true},
+		{"long runs, counts short", caloFragment(h, cat(packed(1, runT), packed(2, runC[:45]))), true},
 		{"towers only", caloFragment(h, packed(1, towers)), true},
 		{"counts only", caloFragment(h, packed(2, counts)), true},
 		{"more counts than towers", caloFragment(h, cat(packed(1, towers[:2]), packed(2, counts))), true},
