@@ -231,8 +231,9 @@ func TestDamagedStreamMatchesSequential(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	// Flip a byte past the middle: that frame fails its checksum.
-	data[len(data)*3/5] ^= 0x40
+	// Flip a byte in the second of the file's two batch frames (the
+	// first holds 1 MiB): that frame fails its checksum.
+	data[len(data)*4/5] ^= 0x40
 	if err := os.WriteFile(path, data, 0o644); err != nil {
 		t.Fatal(err)
 	}
