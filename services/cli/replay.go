@@ -9,11 +9,13 @@ import (
 	"os"
 	"path/filepath"
 	"strings"
+	"time"
 
 	"github.com/bunchsieve/bunchsieve/detector"
 	"github.com/bunchsieve/bunchsieve/examples"
 	rpt "github.com/bunchsieve/bunchsieve/services/report"
 	"github.com/bunchsieve/bunchsieve/services/report/replay"
+	"github.com/bunchsieve/bunchsieve/services/usage"
 	"github.com/bunchsieve/bunchsieve/trigger"
 )
 
@@ -112,6 +114,7 @@ func runReplay(ctx context.Context, e *env, args []string) error {
 		bar = rpt.NewProgress(e.stderr)
 		opts.Progress = bar.Update
 	}
+	began, beganCPU := time.Now(), usage.Process()
 	stopProfile, err := startCPUProfile(*cpuProfile)
 	if err != nil {
 		return err
@@ -134,9 +137,27 @@ func runReplay(ctx context.Context, e *env, args []string) error {
 	if err := rep.WriteTable(e.stdout); err != nil {
 		return err
 	}
+	took, cpu := time.Since(began), usage.Process().Sub(beganCPU)
 	fmt.Fprintf(e.stdout, "\nwrote %s, %s, %s and %d plots (PNG and SVG) to %s\n",
 		rpt.JSONFile, rpt.CSVFile, rpt.ROOTFile, len(rep.PlotFiles()), *out)
+	fmt.Fprintln(e.stdout, throughputLine(rep.Processing.Crossings, took, cpu))
 	return runErr
+}
+
+// throughputLine says how fast a replay went: events over the wall time
+// from the first read to the last file written, and the processor time
+// of the whole process per event where the system accounts it.
+func throughputLine(events uint64, took time.Duration, cpu usage.CPU) string {
+	line := fmt.Sprintf("replayed %d events in %.2f s", events, took.Seconds())
+	if events == 0 || took <= 0 {
+		return line
+	}
+	line += fmt.Sprintf(": %.0f events/s", float64(events)/took.Seconds())
+	if usage.Available && cpu.Total() > 0 {
+		line += fmt.Sprintf(", %.1f µs of processor time per event (reading, building, selection and the report)",
+			float64(cpu.Total().Microseconds())/float64(events))
+	}
+	return line
 }
 
 // replayOptions reads the menus and the report's sections.

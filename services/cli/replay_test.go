@@ -7,6 +7,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"github.com/bunchsieve/bunchsieve/services/usage"
 )
 
 // replay runs end to end on a small generated sample and writes every
@@ -26,7 +28,7 @@ func TestReplayEndToEnd(t *testing.T) {
 		if stderr != "" {
 			t.Errorf("stderr not a terminal, yet: %q", stderr)
 		}
-		for _, want := range []string{"menu lantern-starter", "400 crossings", "not measurements", "met-120", "total", "scan of met-120", "compared with menu tighter"} {
+		for _, want := range []string{"menu lantern-starter", "400 crossings", "not measurements", "met-120", "total", "scan of met-120", "compared with menu tighter", "replayed 400 events in "} {
 			if !strings.Contains(stdout, want) {
 				t.Errorf("stdout lacks %q:\n%s", want, stdout)
 			}
@@ -121,5 +123,20 @@ func TestReplayCPUProfile(t *testing.T) {
 	code, _, stderr = runCLI(t, time.Minute, "replay", "--generate", "10", "--out", filepath.Join(dir, "out2"), "--cpuprofile", filepath.Join(dir, "missing", "p.prof"))
 	if code == 0 || strings.Count(stderr, "\n") != 1 || !strings.Contains(stderr, "cpu profile") {
 		t.Errorf("unwritable profile: exit %d, stderr %q", code, stderr)
+	}
+}
+
+// The throughput line: events over wall time, processor time per event.
+func TestThroughputLine(t *testing.T) {
+	got := throughputLine(40000, 2*time.Second, usage.CPU{User: 900 * time.Millisecond, System: 100 * time.Millisecond})
+	want := "replayed 40000 events in 2.00 s: 20000 events/s"
+	if usage.Available {
+		want += ", 25.0 µs of processor time per event (reading, building, selection and the report)"
+	}
+	if got != want {
+		t.Errorf("got  %q\nwant %q", got, want)
+	}
+	if got := throughputLine(0, time.Second, usage.CPU{}); got != "replayed 0 events in 1.00 s" {
+		t.Errorf("no events: %q", got)
 	}
 }
