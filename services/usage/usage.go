@@ -14,4 +14,6 @@ type CPU struct {
 func (c CPU) Total() time.Duration { return c.User + c.System }
 
 // Sub returns the time used from before to c.
-func (c CPU) Sub(before CPU) CPU { return CPU{User: c.User - before.User, System: c.System - before.System} }
+func (c CPU) Sub(before CPU) CPU {
+	return CPU{User: c.User - before.User, System: c.System - before.System}
+}
