@@ -20,9 +20,10 @@ import (
 // the two lists once, in step, feeding the checksum and keeping the
 // towers the selection will see as towerWords; the worker turns those
 // into GridTowers through the table as it concatenates an event's.
-// Anything else (a muon payload, unpacked or split lists, unknown fields,
-// a payload given twice, a count beyond 16 bits, bad encodings) goes
-// through decodeFragment, Checksummer.Sum and towerTable.fill, the
+// A fragment with an empty muon payload takes the pass too. Anything
+// else (a muon payload with hits, unpacked or split lists, unknown
+// fields, a payload given twice, a count beyond 16 bits, bad encodings)
+// goes through decodeFragment, Checksummer.Sum and towerTable.fill, the
 // reference path, so the outcome never depends on which path a fragment
 // took.
 
@@ -85,9 +86,9 @@ func (fz *fuser) decode(data []byte, s *slot) (intact bool, err error) {
 	return fz.sum.Sum(&s.f) == s.f.Checksum, nil
 }
 
-// fuse decodes a calorimeter fragment in the canonical layout into s in
-// one pass and returns the CRC-32C of its canonical content, the value
-// Checksummer.Sum gives. On success s.f holds the header fields and the
+// fuse decodes a calorimeter fragment in the canonical layout, or a
+// fragment with an empty muon payload, into s in one pass and returns
+// the CRC-32C of its canonical content, the value Checksummer.Sum gives. On success s.f holds the header fields and the
 // checksum, with a nil Payload, and s.towers the towers towerTable.fill
 // makes of its payload. It reports false, with s in an unspecified
 // state, for any other layout.
@@ -112,9 +113,10 @@ func (fz *fuser) fuse(data []byte, s *slot) (uint32, bool) {
 			}
 			data = data[n:]
 			hdr[num] = v // a later occurrence wins, as protobuf decodes
-		case typ == protowire.BytesType && num == 7 && !seen:
+		case typ == protowire.BytesType && (num == 7 || num == 8) && !seen:
 			v, n := protowire.ConsumeBytes(data)
-			if n < 0 {
+			if n < 0 || num == 8 && n != 1 {
+				// A muon payload with hits takes the general path.
 				return 0, false
 			}
 			data = data[n:]
@@ -126,6 +128,9 @@ func (fz *fuser) fuse(data []byte, s *slot) (uint32, bool) {
 	if !seen {
 		return 0, false
 	}
+	// An empty muon payload (a sector without hits, as most are) has the
+	// canonical content of its header alone, as an empty calorimeter
+	// payload has: splitCalo gives no lists for it.
 	towers, counts, ok := splitCalo(payload)
 	if !ok {
 		return 0, false

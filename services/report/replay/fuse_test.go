@@ -266,6 +266,9 @@ func cat(parts ...[]byte) []byte {
 // fragment's own fields come, and hands every other layout to the
 // reference path; either way the fragment decodes as the reference path
 // decodes it.
+// muonHit is the encoding of one MuonHit (station 2, x 1 mm).
+var muonHit = protowire.AppendBytes([]byte{1<<3 | 2}, []byte{1 << 3, 2, 2<<3 | 5, 0, 0, 0x80, 0x3f})
+
 func TestFuseLayouts(t *testing.T) {
 	towers := []uint32{5, 300, 20000, 9, 1 << 31, 70}
 	counts := []uint32{1, 0, 7, 128, 1 << 20, 4095} // 1 << 20 on a tower off the table
@@ -326,7 +329,9 @@ func TestFuseLayouts(t *testing.T) {
 		{"unknown payload field", caloFragment(h, cat(canonical, protowire.AppendVarint([]byte{3 << 3}, 1))), false},
 		{"unknown fragment field", cat(sealed, protowire.AppendVarint(protowire.AppendTag(nil, 20, protowire.VarintType), 1)), false},
 		{"payload given twice", cat(sealed, protowire.AppendBytes([]byte{7<<3 | 2}, packed(1, towers))), false},
-		{"muon payload", cat([]byte{1 << 3, 3}, protowire.AppendBytes([]byte{8<<3 | 2}, nil)), false},
+		{"empty muon payload", cat([]byte{1 << 3, 3}, protowire.AppendBytes([]byte{8<<3 | 2}, nil)), true},
+		{"muon payload with a hit", cat([]byte{1 << 3, 3}, protowire.AppendBytes([]byte{8<<3 | 2}, muonHit)), false},
+		{"empty muon payload, then a calorimeter one", cat(protowire.AppendBytes([]byte{8<<3 | 2}, nil), sealed), false},
 		{"header of the wrong type", cat(sealed, protowire.AppendBytes([]byte{2<<3 | 2}, nil)), false},
 		{"truncated varint", caloFragment(h, cat(packed(1, towers), []byte{2<<3 | 2, 2, 0x80, 0x80})), false},
 		{"overlong varint", caloFragment(h, cat([]byte{1<<3 | 2, 10}, []byte{0xff, 0xff, 0xff, 0xff, 0xff, 0xff, 0xff, 0xff, 0xff, 0x7f})), false},
@@ -394,7 +399,7 @@ func checkFuzzCase(t *testing.T, fz *fuser, cache *slotCache, data []byte) {
 	if err := proto.Unmarshal(data, &pf); err != nil {
 		t.Fatalf("fused, but protobuf does not decode it: %v", err)
 	}
-	if pf.GetCalo() == nil || pf.Intact() != intact {
+	if (pf.GetCalo() == nil && (pf.GetMuon() == nil || len(pf.GetMuon().Hits) > 0)) || pf.Intact() != intact {
 		t.Fatalf("fused, protobuf decodes payload %T, intact %v", pf.Payload, pf.Intact())
 	}
 	selector.FillEvent(detector.Lantern(), []*pb.Fragment{&pf}, 1, &exp)
