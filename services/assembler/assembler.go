@@ -39,7 +39,15 @@ type Config struct {
 	BatchEvents int
 	// Tick is how often watermarks and dead sources are checked and partly
 	// filled batches published; zero means 2 ms.
-	Tick     time.Duration
+	Tick time.Duration
+	// Linger is how long a partly filled batch of events may wait for more
+	// once no fragment batch is queued: it goes out when the queue runs
+	// empty and its first event is at least this old, and otherwise on the
+	// next tick. Zero means 1 ms; negative means as soon as the queue runs
+	// empty. Waiting fills the batches when fragments come one crossing per
+	// message: the selection then gets full batches instead of a message
+	// for every few events.
+	Linger   time.Duration
 	Subjects transport.Subjects
 	// Logger receives rate-limited reports of discarded fragments; nil
 	// means slog.Default().
@@ -63,6 +71,7 @@ type Assembler struct {
 	in        wireBatch
 	out       []byte // the batch being filled: batchHeadRoom bytes, then events
 	events    int    // events in out
+	firstNs   int64  // when the first event in out was emitted (Unix ns)
 	enc       builtEvent
 	holders   []*heldFragment // scratch of emit
 	head      []byte
@@ -102,6 +111,9 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Assembler, erro
 	if cfg.Tick == 0 {
 		cfg.Tick = 2 * time.Millisecond
 	}
+	if cfg.Linger == 0 {
+		cfg.Linger = time.Millisecond
+	}
 	if cfg.Logger == nil {
 		cfg.Logger = slog.Default()
 	}
@@ -140,9 +152,10 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Assembler, erro
 // Fragment batches are taken on Run's own goroutine from a queue of
 // transport.PendingMsgs messages, whatever has queued up (at most
 // burstMsgs) under one lock and one clock reading. Built events are
-// published when a batch is full, when the queue has run empty and on
-// every tick: while batches keep coming, event batches fill up instead of
-// carrying one event each, and when they stop nothing waits.
+// published when a batch is full, when the queue has run empty and the
+// batch's first event is Config.Linger old, and on every tick: while
+// fragments keep coming, event batches fill up instead of carrying a few
+// events each, and when they stop an event waits a tick at most.
 func (a *Assembler) Run(ctx context.Context) error {
 	in := make(chan *nats.Msg, transport.PendingMsgs)
 	sub, err := transport.SubscribeQueued(a.nc, a.cfg.Subjects.FragmentsOf(a.cfg.Instance), "", in)
@@ -223,9 +236,9 @@ func (a *Assembler) receive(first *nats.Msg, in chan *nats.Msg) {
 		}
 		a.takeLocked(msg, arrival)
 	}
-	if len(in) > 0 {
-		// More to come at once: let the batch fill (a full one goes out
-		// from emit, and the tick bounds the wait).
+	if len(in) > 0 || (a.cfg.Linger > 0 && a.events > 0 && arrival-a.firstNs < int64(a.cfg.Linger)) {
+		// More to come at once, or the batch is young: let it fill (a
+		// full one goes out from emit, and the tick bounds the wait).
 		return
 	}
 	if err := a.publishLocked(false); err != nil && a.pubErr == nil {
@@ -332,6 +345,9 @@ func (a *Assembler) emit(ev *builder.Event) {
 	a.m.latency.Observe(lat.Seconds())
 	if ev.EarliestSentNs > 0 {
 		a.m.sinceSent.Observe(time.Duration(e.builtNs - ev.EarliestSentNs).Seconds())
+	}
+	if a.events == 0 {
+		a.firstNs = e.builtNs
 	}
 	a.events++
 	a.emitted++

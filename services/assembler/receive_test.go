@@ -124,15 +124,15 @@ func embeddedConn(t *testing.T, name string) *nats.Conn {
 }
 
 // Fragment batches that queue up are taken together, and their events go
-// out in full batches instead of one batch per completed crossing; a
-// crossing that arrives alone goes out as soon as the queue is empty,
-// without waiting for the tick.
+// out in full batches instead of one batch per completed crossing; with
+// no linger a crossing that arrives alone goes out as soon as the queue
+// is empty, without waiting for the tick.
 func TestQueuedBatchesFillEventBatches(t *testing.T) {
 	stream, sources := oneCrossingBatches(t, 200)
 	nc := embeddedConn(t, "receive")
 	subjects := transport.Subjects{Prefix: "receive"}
 	w := watchBuilt(t, nc, subjects)
-	a, err := New(Config{Builder: builder.Config{Run: 1, Sources: sources}, Tick: time.Hour, Subjects: subjects}, nc, prometheus.NewRegistry())
+	a, err := New(Config{Builder: builder.Config{Run: 1, Sources: sources}, Tick: time.Hour, Linger: -1, Subjects: subjects}, nc, prometheus.NewRegistry())
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -216,5 +216,126 @@ func TestRunOneCrossingBatches(t *testing.T) {
 	}
 	if bytes != want {
 		t.Fatalf("%d bytes counted, %d published", bytes, want)
+	}
+}
+
+// A partly filled batch waits for more events while it is younger than
+// Linger, even when the queue has run empty, and goes out with the next
+// fragment batch taken after that; a full batch never waits.
+func TestLingerHoldsYoungBatches(t *testing.T) {
+	stream, sources := oneCrossingBatches(t, 200)
+	nc := embeddedConn(t, "linger")
+	subjects := transport.Subjects{Prefix: "linger"}
+	w := watchBuilt(t, nc, subjects)
+	newAssembler := func(linger time.Duration) *Assembler {
+		a, err := New(Config{Builder: builder.Config{Run: 1, Sources: sources}, Tick: time.Hour, Linger: linger, Subjects: subjects}, nc, prometheus.NewRegistry())
+		if err != nil {
+			t.Fatal(err)
+		}
+		return a
+	}
+	in := make(chan *nats.Msg, len(stream.batches))
+	feed := func(a *Assembler, from, to int) {
+		for _, data := range stream.batches[from*16 : to*16] {
+			in <- &nats.Msg{Subject: "test", Data: data}
+		}
+		for len(in) > 0 {
+			a.receive(<-in, in)
+		}
+	}
+	flushed := func() int {
+		if err := nc.Flush(); err != nil {
+			t.Fatal(err)
+		}
+		w.mu.Lock()
+		defer w.mu.Unlock()
+		return w.events
+	}
+
+	// An hour's linger: 70 crossings give one full batch at once, and the
+	// 6 left wait however often the queue runs empty.
+	a := newAssembler(time.Hour)
+	feed(a, 0, 70)
+	if sizes := w.waitEvents(t, 64); len(sizes) != 1 || sizes[0] != 64 {
+		t.Fatalf("batch sizes %v, want one full batch of 64", sizes)
+	}
+	feed(a, 70, 71)
+	if got := flushed(); got != 64 || a.events != 7 {
+		t.Fatalf("%d events published and %d waiting, want 64 and 7", got, a.events)
+	}
+	// Publishing (as the tick does) sends the young batch.
+	a.mu.Lock()
+	if err := a.publishLocked(false); err != nil {
+		t.Fatal(err)
+	}
+	a.mu.Unlock()
+	if sizes := w.waitEvents(t, 71); len(sizes) != 2 || sizes[1] != 7 {
+		t.Fatalf("batch sizes %v, want [64 7]", sizes)
+	}
+
+	// A linger of 1 ns: the crossing taken alone waits (it was built after
+	// the burst's clock reading), the next fragment batch finds it old.
+	b := newAssembler(time.Nanosecond)
+	feed(b, 100, 101)
+	if got := flushed(); got != 71 || b.events != 1 {
+		t.Fatalf("%d events published and %d waiting, want 71 and 1", got, b.events)
+	}
+	// The first fragment of the next crossing completes nothing; taking it
+	// publishes the waiting event.
+	in <- &nats.Msg{Subject: "test", Data: stream.batches[101*16]}
+	b.receive(<-in, in)
+	if sizes := w.waitEvents(t, 72); len(sizes) != 3 || sizes[2] != 1 || b.events != 0 {
+		t.Fatalf("batch sizes %v, %d waiting; want a third batch of 1 and none waiting", sizes, b.events)
+	}
+}
+
+// Run builds every crossing once, complete, and ends at the markers
+// whether partly filled batches linger or not, and when they may linger
+// longer than a tick.
+func TestRunLingerSettings(t *testing.T) {
+	const crossings = 300
+	stream, sources := oneCrossingBatches(t, crossings)
+	for _, c := range []struct {
+		name   string
+		linger time.Duration
+	}{
+		{"default", 0},
+		{"none", -1},
+		{"longer than the tick", 50 * time.Millisecond},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			nc := embeddedConn(t, "linger")
+			subjects := transport.Subjects{Prefix: "linger"}
+			w := watchBuilt(t, nc, subjects)
+			a, err := New(Config{Builder: builder.Config{Run: 1, Sources: sources}, Linger: c.linger, Subjects: subjects}, nc, prometheus.NewRegistry())
+			if err != nil {
+				t.Fatal(err)
+			}
+			done := make(chan error, 1)
+			go func() { done <- a.Run(context.Background()) }()
+			<-a.Ready()
+			for i, data := range stream.batches {
+				if err := nc.Publish(subjects.Fragments(0, stream.sources[i]), data); err != nil {
+					t.Fatal(err)
+				}
+			}
+			select {
+			case err := <-done:
+				if err != nil {
+					t.Fatal(err)
+				}
+			case <-time.After(30 * time.Second):
+				t.Fatal("Run did not end at the end-of-run markers")
+			}
+			sizes := w.waitEvents(t, crossings)
+			n := 0
+			for _, k := range sizes {
+				n += k
+			}
+			s := a.Stats()
+			if n != crossings || a.Emitted() != crossings || s.EventsComplete != crossings || s.InEvents != crossings*16 {
+				t.Fatalf("%d events in batches %v, emitted %d, accounting %+v; want %d complete events", n, sizes, a.Emitted(), s, crossings)
+			}
+		})
 	}
 }

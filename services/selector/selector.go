@@ -72,6 +72,7 @@ type Selector struct {
 	out      *pb.DecisionBatch
 	outBuf   []byte
 	seq      uint64
+	clock    time.Time // the last clock reading while deciding a batch, or zero
 	ends     int
 	expected uint64
 	seen     uint64
@@ -263,7 +264,7 @@ func (s *Selector) Ready() <-chan struct{} { return s.ready }
 func (s *Selector) onMsg(msg *nats.Msg) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
-	h, err := walkBatch(msg.Data, s.decideWire)
+	h, err := s.decideBatch(msg.Data)
 	if err != nil {
 		// Events before the damage have been decided; the rest of the
 		// batch is lost and counted with it.
@@ -355,9 +356,24 @@ func (s *Selector) checkFinishedLocked() {
 	}
 }
 
-// decideWire decides one encoded built event. Called with s.mu held.
+// decideBatch decides every event of an encoded event batch. The events
+// are decided back to back, so the clock is read once per event: the
+// previous event's decision time (or the batch's start) is the next one's
+// start. Called with s.mu held.
+func (s *Selector) decideBatch(data []byte) (batchHeader, error) {
+	s.clock = time.Now()
+	h, err := walkBatch(data, s.decideWire)
+	s.clock = time.Time{}
+	return h, err
+}
+
+// decideWire decides one encoded built event, timed from s.clock (from
+// now if it is not set). Called with s.mu held.
 func (s *Selector) decideWire(raw []byte) error {
-	start := time.Now()
+	start := s.clock
+	if start.IsZero() {
+		start = time.Now()
+	}
 	we := &s.we
 	if err := we.decode(raw); err != nil {
 		return err
@@ -414,8 +430,11 @@ func (s *Selector) selectorFor(l uint32) *trigger.Selector {
 // with s.mu held.
 func (s *Selector) finish(sel *trigger.Selector, e eventMeta, start time.Time) {
 	sel.Decide(&s.ev, &s.dec)
-	took := time.Since(start)
-	s.m.latency.Observe(took.Seconds())
+	now := time.Now()
+	if !s.clock.IsZero() {
+		s.clock = now // the next event of the batch starts here
+	}
+	s.m.latency.Observe(now.Sub(start).Seconds())
 	s.seen++
 	s.events++
 	d := s.nextDecision()
@@ -443,7 +462,7 @@ func (s *Selector) finish(sel *trigger.Selector, e eventMeta, start time.Time) {
 	}
 	s.m.decisions.Inc()
 	if e.readout > 0 {
-		e2e := time.Duration(time.Now().UnixNano() - e.readout)
+		e2e := time.Duration(now.UnixNano() - e.readout)
 		s.EndToEnd.Record(e2e)
 		if s.cfg.EndToEnd != nil {
 			s.cfg.EndToEnd.Record(e2e)

@@ -4,8 +4,11 @@ import (
 	"io/fs"
 	"strings"
 	"testing"
+	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
+	dto "github.com/prometheus/client_model/go"
+	"google.golang.org/protobuf/proto"
 
 	"github.com/bunchsieve/bunchsieve/detector"
 	"github.com/bunchsieve/bunchsieve/examples"
@@ -72,5 +75,58 @@ func TestLoadMenuAtLumiSliceBoundary(t *testing.T) {
 	bad := starter(t)
 	if err := s.LoadMenu(bad, "no-such-set"); err == nil {
 		t.Fatal("an unknown prescale set must be refused")
+	}
+}
+
+// Deciding a batch observes one selection time per event, read from one
+// clock reading per event: the times are positive and add up to no more
+// than the batch took; every event with a readout time gets an end-to-end
+// latency.
+func TestBatchTimesEachEvent(t *testing.T) {
+	s := newTestSelector(t, nil, Config{BatchDecisions: 1 << 30})
+	batches := sampleEvents(t, 300, 50, 3)
+	var events uint64
+	var took time.Duration
+	for _, data := range batches {
+		s.mu.Lock()
+		start := time.Now()
+		if _, err := s.decideBatch(data); err != nil {
+			t.Fatal(err)
+		}
+		took += time.Since(start)
+		s.mu.Unlock()
+		if !s.clock.IsZero() {
+			t.Fatal("the batch clock outlives the batch")
+		}
+	}
+	events = s.events
+	if events != 300 {
+		t.Fatalf("%d events decided, want 300", events)
+	}
+	var m dto.Metric
+	if err := s.m.latency.Write(&m); err != nil {
+		t.Fatal(err)
+	}
+	h := m.GetHistogram()
+	if h.GetSampleCount() != events {
+		t.Fatalf("%d selection times observed, want %d", h.GetSampleCount(), events)
+	}
+	if sum := h.GetSampleSum(); sum <= 0 || sum > took.Seconds() {
+		t.Fatalf("selection times add up to %g s, want more than 0 and at most the %g s the batches took", sum, took.Seconds())
+	}
+	withReadout := uint64(0)
+	for _, data := range batches {
+		var b pb.EventBatch
+		if err := proto.Unmarshal(data, &b); err != nil {
+			t.Fatal(err)
+		}
+		for _, be := range b.Events {
+			if be.ReadoutUnixNs > 0 {
+				withReadout++
+			}
+		}
+	}
+	if got := s.EndToEnd.Count(); got != withReadout {
+		t.Fatalf("%d end-to-end latencies, want %d (events with a readout time)", got, withReadout)
 	}
 }
