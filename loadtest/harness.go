@@ -32,6 +32,9 @@ type Config struct {
 	Menu *trigger.Menu
 	// Workers is the number of selection workers; zero means GOMAXPROCS.
 	Workers int
+	// Linger is the builders' assembler.Config.Linger: how long a partly
+	// filled batch of built events may wait for more; zero means none.
+	Linger time.Duration
 	// Rates are the offered crossing rates, one step each, 0 meaning as
 	// fast as possible; empty means a single step as fast as possible.
 	Rates []float64
@@ -271,7 +274,7 @@ func (h *harness) step(ctx context.Context, rateHz float64, index int, n uint64)
 	if n > 0 {
 		crossings = n
 	}
-	pc := pipelineConfig{ds: ds, net: cfg.Network, menu: cfg.Menu, workers: cfg.Workers, subjects: h.subjects(), logger: cfg.Logger, decisions: cfg.Decisions}
+	pc := pipelineConfig{ds: ds, net: cfg.Network, menu: cfg.Menu, workers: cfg.Workers, linger: cfg.Linger, subjects: h.subjects(), logger: cfg.Logger, decisions: cfg.Decisions}
 	if index < 0 {
 		pc.decisions = nil // the warm-up's decisions are nobody's business
 	}

@@ -45,6 +45,7 @@ type pipelineConfig struct {
 	net      *Network
 	menu     *trigger.Menu
 	workers  int
+	linger   time.Duration
 	subjects transport.Subjects
 	logger   *slog.Logger
 	// decisions, if not nil, gets every decision batch.
@@ -80,7 +81,7 @@ func newPipeline(cfg pipelineConfig) (*pipeline, error) {
 		}
 		a, err := assembler.New(assembler.Config{
 			Builder: bc, Instance: k, Instances: cfg.ds.Partitions, LumiSliceOrbits: d.Config.LumiSliceOrbits,
-			Subjects: cfg.subjects, Logger: cfg.logger,
+			Linger: cfg.linger, Subjects: cfg.subjects, Logger: cfg.logger,
 		}, nc, prometheus.NewRegistry())
 		if err != nil {
 			return fail(err)

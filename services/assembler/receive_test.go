@@ -299,8 +299,9 @@ func TestRunLingerSettings(t *testing.T) {
 		name   string
 		linger time.Duration
 	}{
-		{"default", 0},
-		{"none", -1},
+		{"default: none", 0},
+		{"negative: none", -1},
+		{"1 ms", time.Millisecond},
 		{"longer than the tick", 50 * time.Millisecond},
 	} {
 		t.Run(c.name, func(t *testing.T) {

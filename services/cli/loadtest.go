@@ -5,10 +5,8 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"os"
 	"runtime"
 	"runtime/debug"
-	"runtime/pprof"
 	"strconv"
 	"strings"
 	"time"
@@ -33,6 +31,7 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 	cluster := fs.Bool("cluster", false, "start three clustered NATS servers on loopback and connect over TCP (default --builders 2 --workers 2)")
 	builders := fs.Int("builders", 0, "builder instances sharing the crossings (default 1, or 2 with --cluster)")
 	workers := fs.Int("workers", 0, "selection workers in the queue group (default GOMAXPROCS, or 2 with --cluster)")
+	linger := fs.Duration("linger", 0, "how long the builders let a partly filled batch of built events wait for more (e.g. 1ms; pays with --batch 1)")
 	rate := fs.String("rate", "", "one offered rate in crossings/s, e.g. 50000 or 50k; 0 = as fast as possible")
 	rates := fs.String("rates", "", "offered rates, comma-separated (e.g. 20k,40k,60k) or a sweep FROM:TO:STEP (e.g. 20k:120k:10k)")
 	duration := fs.Duration("duration", 5*time.Second, "how long each fixed-rate step offers crossings")
@@ -176,7 +175,7 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 	defer nw.Close()
 
 	lc := loadtest.Config{
-		Dataset: ds, Origin: origin, PreparedIn: prepared, Network: nw, Menu: menu, Workers: *workers,
+		Dataset: ds, Origin: origin, PreparedIn: prepared, Network: nw, Menu: menu, Workers: *workers, Linger: *linger,
 		Rates: offered, Duration: *duration, Crossings: *crossings, Refine: *refine, Half: *half,
 		P99Bound: *p99, Drain: *drain, BaselineRuns: *baselineRuns, BaselineLength: *baselineLength, Progress: progress,
 		SubjectPrefix: cfg.SubjectPrefix, ProbeCores: true,
@@ -192,17 +191,11 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 	}
 	old := debug.SetGCPercent(*gogc)
 	defer debug.SetGCPercent(old)
-	if *cpuProfile != "" {
-		f, err := os.Create(*cpuProfile)
-		if err != nil {
-			return err
-		}
-		defer f.Close()
-		if err := pprof.StartCPUProfile(f); err != nil {
-			return err
-		}
-		defer pprof.StopCPUProfile()
+	stopProfile, err := startCPUProfile(*cpuProfile)
+	if err != nil {
+		return err
 	}
+	defer stopProfile()
 	rep, runErr := loadtest.Run(ctx, lc)
 	if rep != nil {
 		rep.Command = "bunchsieve loadtest " + strings.Join(args, " ")
