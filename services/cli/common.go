@@ -3,10 +3,12 @@ package cli
 import (
 	"flag"
 	"fmt"
+	"io"
 	"math"
 	"net"
 	"os"
 	"runtime/pprof"
+	"runtime/trace"
 	"strconv"
 	"sync"
 	"time"
@@ -110,22 +112,33 @@ func checkHostPort(flagName, addr string) error {
 // called more than once and reports the first call's error. An empty
 // path profiles nothing.
 func startCPUProfile(path string) (stop func() error, err error) {
+	return startRecording(path, "cpu profile", pprof.StartCPUProfile, pprof.StopCPUProfile)
+}
+
+// startTrace is startCPUProfile for an execution trace (go tool trace).
+func startTrace(path string) (stop func() error, err error) {
+	return startRecording(path, "trace", trace.Start, trace.Stop)
+}
+
+// startRecording creates the file at path, calls begin on it and returns
+// the function that calls end and closes the file, once.
+func startRecording(path, what string, begin func(io.Writer) error, end func()) (stop func() error, err error) {
 	if path == "" {
 		return func() error { return nil }, nil
 	}
 	f, err := os.Create(path)
 	if err != nil {
-		return nil, fmt.Errorf("cli: cpu profile: %w", err)
+		return nil, fmt.Errorf("cli: %s: %w", what, err)
 	}
-	if err := pprof.StartCPUProfile(f); err != nil {
+	if err := begin(f); err != nil {
 		f.Close()
-		return nil, fmt.Errorf("cli: cpu profile: %w", err)
+		return nil, fmt.Errorf("cli: %s: %w", what, err)
 	}
 	var once sync.Once
 	var closeErr error
 	return func() error {
 		once.Do(func() {
-			pprof.StopCPUProfile()
+			end()
 			closeErr = f.Close()
 		})
 		return closeErr

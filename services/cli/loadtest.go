@@ -46,6 +46,7 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 	jsonPath := fs.String("json", "", "write the report as JSON to `FILE`")
 	pngPath := fs.String("png", "", "plot throughput and latency against the offered rate into `FILE` (PNG)")
 	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the measured part to `FILE`")
+	traceFile := fs.String("trace", "", "write an execution trace of the measured part to `FILE` (go tool trace; large: keep steps short)")
 	gogc := fs.Int("gogc", 100, "garbage collector target percentage during the test (as GOGC; 100 is Go's default)")
 	quiet := fs.Bool("quiet", false, "no progress lines (they go to stderr, and only to a terminal)")
 	if err := parse(fs, args, 0); err != nil {
@@ -196,6 +197,11 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 	defer stopProfile()
+	stopTrace, err := startTrace(*traceFile)
+	if err != nil {
+		return err
+	}
+	defer stopTrace()
 	rep, runErr := loadtest.Run(ctx, lc)
 	if rep != nil {
 		rep.Command = "bunchsieve loadtest " + strings.Join(args, " ")
