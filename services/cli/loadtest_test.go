@@ -15,9 +15,9 @@ import (
 // report and the plot it was asked for.
 func TestLoadtestCommand(t *testing.T) {
 	dir := t.TempDir()
-	jsonPath, pngPath := filepath.Join(dir, "lt.json"), filepath.Join(dir, "lt.png")
+	jsonPath, pngPath, tracePath := filepath.Join(dir, "lt.json"), filepath.Join(dir, "lt.png"), filepath.Join(dir, "lt.trace")
 	code, stdout, stderr := runCLI(t, time.Minute, "loadtest", "--dataset", "1200", "--rates", "1k,2k", "--duration", "500ms",
-		"--baseline-runs", "1", "--baseline-length", "100ms", "--json", jsonPath, "--png", pngPath)
+		"--baseline-runs", "1", "--baseline-length", "100ms", "--json", jsonPath, "--png", pngPath, "--trace", tracePath)
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, stderr)
 	}
@@ -28,6 +28,10 @@ func TestLoadtestCommand(t *testing.T) {
 		if !strings.Contains(stdout, want) {
 			t.Errorf("table lacks %q:\n%s", want, stdout)
 		}
+	}
+	// An execution trace starts with the runtime's header, "go 1.".
+	if tr, err := os.ReadFile(tracePath); err != nil || !strings.HasPrefix(string(tr), "go 1.") {
+		t.Errorf("--trace wrote %d bytes (%v), not an execution trace", len(tr), err)
 	}
 	data, err := os.ReadFile(jsonPath)
 	if err != nil {
