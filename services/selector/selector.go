@@ -359,7 +359,9 @@ func (s *Selector) checkFinishedLocked() {
 // decideBatch decides every event of an encoded event batch. The events
 // are decided back to back, so the clock is read once per event: the
 // previous event's decision time (or the batch's start) is the next one's
-// start. Called with s.mu held.
+// start, which charges the previous event's few bookkeeping steps to it;
+// after publishing a batch of decisions the clock is read again. Called
+// with s.mu held.
 func (s *Selector) decideBatch(data []byte) (batchHeader, error) {
 	s.clock = time.Now()
 	h, err := walkBatch(data, s.decideWire)
@@ -472,6 +474,10 @@ func (s *Selector) finish(sel *trigger.Selector, e eventMeta, start time.Time) {
 	if len(s.out.Decisions) >= s.cfg.BatchDecisions {
 		if err := s.publishLocked(); err != nil && s.pubErr == nil {
 			s.pubErr = err
+		}
+		if !s.clock.IsZero() {
+			// Publishing is not the next event's selection time.
+			s.clock = time.Now()
 		}
 	}
 }

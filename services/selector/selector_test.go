@@ -6,6 +6,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/nats-io/nats.go"
 	"github.com/prometheus/client_golang/prometheus"
 	dto "github.com/prometheus/client_model/go"
 	"google.golang.org/protobuf/proto"
@@ -13,6 +14,7 @@ import (
 	"github.com/bunchsieve/bunchsieve/detector"
 	"github.com/bunchsieve/bunchsieve/examples"
 	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+	"github.com/bunchsieve/bunchsieve/services/transport"
 	"github.com/bunchsieve/bunchsieve/trigger"
 )
 
@@ -83,7 +85,13 @@ func TestLoadMenuAtLumiSliceBoundary(t *testing.T) {
 // than the batch took; every event with a readout time gets an end-to-end
 // latency.
 func TestBatchTimesEachEvent(t *testing.T) {
-	s := newTestSelector(t, nil, Config{BatchDecisions: 1 << 30})
+	t.Run("no publishing", func(t *testing.T) { checkBatchTimes(t, nil, 1<<30) })
+	// Decision batches of 7 go out in the middle of event batches.
+	t.Run("publishing every 7 decisions", func(t *testing.T) { checkBatchTimes(t, embeddedSelectorConn(t), 7) })
+}
+
+func checkBatchTimes(t *testing.T, nc *nats.Conn, batch int) {
+	s := newTestSelector(t, nc, Config{BatchDecisions: batch})
 	batches := sampleEvents(t, 300, 50, 3)
 	var events uint64
 	var took time.Duration
@@ -129,4 +137,21 @@ func TestBatchTimesEachEvent(t *testing.T) {
 	if got := s.EndToEnd.Count(); got != withReadout {
 		t.Fatalf("%d end-to-end latencies, want %d (events with a readout time)", got, withReadout)
 	}
+}
+
+// embeddedSelectorConn returns an in-process connection to an embedded
+// server that lives as long as the test.
+func embeddedSelectorConn(t *testing.T) *nats.Conn {
+	t.Helper()
+	srv, err := transport.Embedded("127.0.0.1", -1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
+	nc, err := transport.ConnectInProcess(srv, "t")
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(nc.Close)
+	return nc
 }
