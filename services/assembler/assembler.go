@@ -43,13 +43,13 @@ type Config struct {
 	// Linger is how long a partly filled batch of events may wait for more
 	// once no fragment batch is queued: it goes out when the queue runs
 	// empty and its first event is at least this old, and otherwise on the
-	// next tick. Zero or negative means as soon as the queue runs empty.
-	// Waiting fills the batches when fragments come one crossing per
-	// message (the selection then gets full batches instead of a message
-	// for every few events: a fifth less processor time per crossing at
-	// one crossing per message); with many crossings per message the
-	// batches fill anyway and waiting only adds latency (docs/
-	// performance.md, "Load test").
+	// next tick, so it may not exceed Tick (New fails). Zero or negative
+	// means as soon as the queue runs empty. Waiting fills the batches
+	// when fragments come one crossing per message (the selection then
+	// gets full batches instead of a message for every few events, which
+	// cost a quarter more processor time per crossing); with many
+	// crossings per message the batches fill anyway and waiting cost both
+	// latency and throughput (docs/performance.md, "The targets").
 	Linger   time.Duration
 	Subjects transport.Subjects
 	// Logger receives rate-limited reports of discarded fragments; nil
@@ -113,6 +113,11 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Assembler, erro
 	}
 	if cfg.Tick == 0 {
 		cfg.Tick = 2 * time.Millisecond
+	}
+	if cfg.Linger > cfg.Tick {
+		// The tick publishes whatever has waited: a longer linger would
+		// not be what it says.
+		return nil, fmt.Errorf("assembler: linger %v is longer than the tick %v", cfg.Linger, cfg.Tick)
 	}
 	if cfg.Logger == nil {
 		cfg.Logger = slog.Default()

@@ -2,6 +2,7 @@ package assembler
 
 import (
 	"context"
+	"strings"
 	"sync"
 	"testing"
 	"time"
@@ -290,9 +291,13 @@ func TestLingerHoldsYoungBatches(t *testing.T) {
 }
 
 // Run builds every crossing once, complete, and ends at the markers
-// whether partly filled batches linger or not, and when they may linger
-// longer than a tick.
+// whether partly filled batches linger or not, up to the whole tick; a
+// linger longer than the tick is refused.
 func TestRunLingerSettings(t *testing.T) {
+	if _, err := New(Config{Builder: builder.Config{Run: 1, Sources: []uint32{1}}, Linger: 3 * time.Millisecond}, nil, prometheus.NewRegistry()); err == nil ||
+		!strings.Contains(err.Error(), "linger 3ms is longer than the tick 2ms") {
+		t.Errorf("a linger past the tick: %v", err)
+	}
 	const crossings = 300
 	stream, sources := oneCrossingBatches(t, crossings)
 	for _, c := range []struct {
@@ -302,7 +307,7 @@ func TestRunLingerSettings(t *testing.T) {
 		{"default: none", 0},
 		{"negative: none", -1},
 		{"1 ms", time.Millisecond},
-		{"longer than the tick", 50 * time.Millisecond},
+		{"the whole tick", 2 * time.Millisecond},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			nc := embeddedConn(t, "linger")

@@ -31,7 +31,7 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 	cluster := fs.Bool("cluster", false, "start three clustered NATS servers on loopback and connect over TCP (default --builders 2 --workers 2)")
 	builders := fs.Int("builders", 0, "builder instances sharing the crossings (default 1, or 2 with --cluster)")
 	workers := fs.Int("workers", 0, "selection workers in the queue group (default GOMAXPROCS, or 2 with --cluster)")
-	linger := fs.Duration("linger", 0, "how long the builders let a partly filled batch of built events wait for more (e.g. 1ms; pays with --batch 1)")
+	linger := fs.Duration("linger", 0, "how long the builders let a partly filled batch of built events wait for more, at most the builders' 2 ms tick (e.g. 1ms; pays with --batch 1)")
 	rate := fs.String("rate", "", "one offered rate in crossings/s, e.g. 50000 or 50k; 0 = as fast as possible")
 	rates := fs.String("rates", "", "offered rates, comma-separated (e.g. 20k,40k,60k) or a sweep FROM:TO:STEP (e.g. 20k:120k:10k)")
 	duration := fs.Duration("duration", 5*time.Second, "how long each fixed-rate step offers crossings")
