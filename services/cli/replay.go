@@ -104,6 +104,11 @@ func runReplay(ctx context.Context, e *env, args []string) error {
 	default:
 		return usagef("give --stream FILE or --generate N (see bunchsieve replay --help)")
 	}
+	stopProfile, err := startCPUProfile(*cpuProfile)
+	if err != nil {
+		return err
+	}
+	defer stopProfile() // on the early returns; a second call does nothing
 	if err := os.MkdirAll(*out, 0o755); err != nil {
 		return err
 	}
@@ -115,11 +120,6 @@ func runReplay(ctx context.Context, e *env, args []string) error {
 		opts.Progress = bar.Update
 	}
 	began, beganCPU := time.Now(), usage.Process()
-	stopProfile, err := startCPUProfile(*cpuProfile)
-	if err != nil {
-		return err
-	}
-	defer stopProfile() // on the early returns; a second call does nothing
 	rep, runErr := rpt.Run(ctx, src, opts)
 	if bar != nil && rep != nil {
 		bar.Done(rep.Processing.Crossings)
@@ -140,22 +140,27 @@ func runReplay(ctx context.Context, e *env, args []string) error {
 	took, cpu := time.Since(began), usage.Process().Sub(beganCPU)
 	fmt.Fprintf(e.stdout, "\nwrote %s, %s, %s and %d plots (PNG and SVG) to %s\n",
 		rpt.JSONFile, rpt.CSVFile, rpt.ROOTFile, len(rep.PlotFiles()), *out)
-	fmt.Fprintln(e.stdout, throughputLine(rep.Processing.Crossings, took, cpu))
+	fmt.Fprintln(e.stdout, throughputLine(rep.Processing.Crossings, took, cpu, given["generate"]))
 	return runErr
 }
 
 // throughputLine says how fast a replay went: events over the wall time
-// from the first read to the last file written, and the processor time
-// of the whole process per event where the system accounts it.
-func throughputLine(events uint64, took time.Duration, cpu usage.CPU) string {
-	line := fmt.Sprintf("replayed %d events in %.2f s", events, took.Seconds())
+// from the first read (or generated crossing) to the last file written,
+// and the processor time of the whole process per event where the
+// system accounts it. Both include the report's fixed costs (plots,
+// files), which dominate a short replay.
+func throughputLine(events uint64, took time.Duration, cpu usage.CPU, generated bool) string {
+	what := "reading"
+	if generated {
+		what = "generating"
+	}
+	line := fmt.Sprintf("replayed %d events in %.2f s, %s, building, selecting and writing the report", events, took.Seconds(), what)
 	if events == 0 || took <= 0 {
 		return line
 	}
 	line += fmt.Sprintf(": %.0f events/s", float64(events)/took.Seconds())
 	if usage.Available && cpu.Total() > 0 {
-		line += fmt.Sprintf(", %.1f µs of processor time per event (reading, building, selection and the report)",
-			float64(cpu.Total().Microseconds())/float64(events))
+		line += fmt.Sprintf(", %.1f µs of processor time per event", float64(cpu.Total().Microseconds())/float64(events))
 	}
 	return line
 }

@@ -28,7 +28,7 @@ func TestReplayEndToEnd(t *testing.T) {
 		if stderr != "" {
 			t.Errorf("stderr not a terminal, yet: %q", stderr)
 		}
-		for _, want := range []string{"menu lantern-starter", "400 crossings", "not measurements", "met-120", "total", "scan of met-120", "compared with menu tighter", "replayed 400 events in "} {
+		for _, want := range []string{"menu lantern-starter", "400 crossings", "not measurements", "met-120", "total", "scan of met-120", "compared with menu tighter", "replayed 400 events in ", ", generating, building"} {
 			if !strings.Contains(stdout, want) {
 				t.Errorf("stdout lacks %q:\n%s", want, stdout)
 			}
@@ -108,7 +108,7 @@ func TestReplayBadFlags(t *testing.T) {
 
 // TestReplayCPUProfile: --cpuprofile writes a profile in pprof's format
 // (gzip-compressed, RFC 1952: it starts 0x1f 0x8b), and an unwritable
-// path is a one-line error before anything runs.
+// path is a one-line error before anything runs or is written.
 func TestReplayCPUProfile(t *testing.T) {
 	dir := t.TempDir()
 	prof := filepath.Join(dir, "replay.prof")
@@ -124,19 +124,22 @@ func TestReplayCPUProfile(t *testing.T) {
 	if code == 0 || strings.Count(stderr, "\n") != 1 || !strings.Contains(stderr, "cpu profile") {
 		t.Errorf("unwritable profile: exit %d, stderr %q", code, stderr)
 	}
+	if _, err := os.Stat(filepath.Join(dir, "out2")); !os.IsNotExist(err) {
+		t.Errorf("the output directory was made before the profile failed: %v", err)
+	}
 }
 
 // The throughput line: events over wall time, processor time per event.
 func TestThroughputLine(t *testing.T) {
-	got := throughputLine(40000, 2*time.Second, usage.CPU{User: 900 * time.Millisecond, System: 100 * time.Millisecond})
-	want := "replayed 40000 events in 2.00 s: 20000 events/s"
+	got := throughputLine(40000, 2*time.Second, usage.CPU{User: 900 * time.Millisecond, System: 100 * time.Millisecond}, false)
+	want := "replayed 40000 events in 2.00 s, reading, building, selecting and writing the report: 20000 events/s"
 	if usage.Available {
-		want += ", 25.0 µs of processor time per event (reading, building, selection and the report)"
+		want += ", 25.0 µs of processor time per event"
 	}
 	if got != want {
 		t.Errorf("got  %q\nwant %q", got, want)
 	}
-	if got := throughputLine(0, time.Second, usage.CPU{}); got != "replayed 0 events in 1.00 s" {
+	if got := throughputLine(0, time.Second, usage.CPU{}, true); got != "replayed 0 events in 1.00 s, generating, building, selecting and writing the report" {
 		t.Errorf("no events: %q", got)
 	}
 }
