@@ -27,9 +27,9 @@ type slot struct {
 	muon  pb.Fragment_Muon
 	muonP pb.MuonPayload
 	hits  []pb.MuonHit
-	// fused is set when the fragment's calorimeter payload was decoded
-	// straight into towers (fuser.fuse): f then has a nil Payload, and
-	// towers holds the towers fill makes of it.
+	// fused is set when the fragment was decoded in one pass
+	// (fuser.fuse: a calorimeter payload, or an empty muon one): f then
+	// has a nil Payload, and towers holds the towers fill makes of it.
 	fused  bool
 	towers []towerWord
 }

@@ -88,10 +88,11 @@ func (fz *fuser) decode(data []byte, s *slot) (intact bool, err error) {
 
 // fuse decodes a calorimeter fragment in the canonical layout, or a
 // fragment with an empty muon payload, into s in one pass and returns
-// the CRC-32C of its canonical content, the value Checksummer.Sum gives. On success s.f holds the header fields and the
-// checksum, with a nil Payload, and s.towers the towers towerTable.fill
-// makes of its payload. It reports false, with s in an unspecified
-// state, for any other layout.
+// the CRC-32C of its canonical content, the value Checksummer.Sum gives.
+// On success s.f holds the header fields and the checksum, with a nil
+// Payload, and s.towers the towers towerTable.fill makes of its payload.
+// It reports false, with s in an unspecified state, for any other
+// layout.
 func (fz *fuser) fuse(data []byte, s *slot) (uint32, bool) {
 	if fz.table == nil {
 		return 0, false

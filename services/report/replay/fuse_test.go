@@ -262,13 +262,13 @@ func cat(parts ...[]byte) []byte {
 	return b
 }
 
+// muonHit is the encoding of one MuonHit (station 2, x 1 mm).
+var muonHit = protowire.AppendBytes([]byte{1<<3 | 2}, []byte{1 << 3, 2, 2<<3 | 5, 0, 0, 0x80, 0x3f})
+
 // The fused pass takes the canonical layout, in whatever order the
 // fragment's own fields come, and hands every other layout to the
 // reference path; either way the fragment decodes as the reference path
 // decodes it.
-// muonHit is the encoding of one MuonHit (station 2, x 1 mm).
-var muonHit = protowire.AppendBytes([]byte{1<<3 | 2}, []byte{1 << 3, 2, 2<<3 | 5, 0, 0, 0x80, 0x3f})
-
 func TestFuseLayouts(t *testing.T) {
 	towers := []uint32{5, 300, 20000, 9, 1 << 31, 70}
 	counts := []uint32{1, 0, 7, 128, 1 << 20, 4095} // 1 << 20 on a tower off the table
@@ -431,6 +431,8 @@ func FuzzFusedPayload(f *testing.F) {
 	f.Fuzz(func(t *testing.T, payload []byte, orbit uint64, checksum uint32) {
 		h := &pb.Fragment{SourceId: 2, Run: 1, Orbit: orbit, Bcid: uint32(orbit % 3564), TimestampNs: int64(orbit) * 25, Checksum: checksum}
 		checkFuzzCase(t, fz, cache, caloFragment(h, payload))
+		// The same bytes as a muon payload: only an empty one is fused.
+		checkFuzzCase(t, fz, cache, cat(header(h), protowire.AppendBytes([]byte{8<<3 | 2}, payload)))
 		// The same payload sealed, so that intact fragments are fuzzed
 		// too.
 		s := cache.get()
