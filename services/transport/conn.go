@@ -21,11 +21,8 @@ const (
 // writeBuffer is the size of every connection's write buffer, raised from
 // the client's 32 KiB: a built-event batch of 64 crossings is larger than
 // that, so publishing one wrote through to the server inline and held
-// the builder while its queue grew. Load-test sweeps at 04:34 - 04:40 UTC
-// 2026-12-02, back to back with and without it: saturation 140,000
-// against 110,000 crossings/s at 32 crossings per message, 45,000 - 55,000
-// against 40,000 at one (docs/performance.md). The raw-transport
-// baselines connect here too.
+// the builder while its queue grew (measured in docs/performance.md,
+// "The targets"). The raw-transport baselines connect here too.
 const writeBuffer = 256 << 10
 
 // Connect opens a connection to url for a stage named name. It fails fast
