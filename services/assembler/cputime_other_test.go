@@ -1,8 +1,0 @@
-//go:build !unix
-
-package assembler
-
-import "time"
-
-// cpuTime returns 0: the process CPU time is read on Unix systems only.
-func cpuTime() time.Duration { return 0 }
