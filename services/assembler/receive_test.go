@@ -186,22 +186,7 @@ func TestRunOneCrossingBatches(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	done := make(chan error, 1)
-	go func() { done <- a.Run(context.Background()) }()
-	<-a.Ready()
-	for i, data := range stream.batches {
-		if err := nc.Publish(subjects.Fragments(0, stream.sources[i]), data); err != nil {
-			t.Fatal(err)
-		}
-	}
-	select {
-	case err := <-done:
-		if err != nil {
-			t.Fatal(err)
-		}
-	case <-time.After(30 * time.Second):
-		t.Fatal("Run did not end at the end-of-run markers")
-	}
+	runToEnd(t, a, nc, subjects, stream)
 	w.waitEvents(t, crossings)
 	s := a.Stats()
 	if a.Emitted() != crossings || s.EventsComplete != crossings || s.InEvents != crossings*16 || a.DroppedMessages() != 0 || a.UndecodableMessages() != 0 {
@@ -317,22 +302,7 @@ func TestRunLingerSettings(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			done := make(chan error, 1)
-			go func() { done <- a.Run(context.Background()) }()
-			<-a.Ready()
-			for i, data := range stream.batches {
-				if err := nc.Publish(subjects.Fragments(0, stream.sources[i]), data); err != nil {
-					t.Fatal(err)
-				}
-			}
-			select {
-			case err := <-done:
-				if err != nil {
-					t.Fatal(err)
-				}
-			case <-time.After(30 * time.Second):
-				t.Fatal("Run did not end at the end-of-run markers")
-			}
+			runToEnd(t, a, nc, subjects, stream)
 			sizes := w.waitEvents(t, crossings)
 			n := 0
 			for _, k := range sizes {
@@ -343,5 +313,27 @@ func TestRunLingerSettings(t *testing.T) {
 				t.Fatalf("%d events in batches %v, emitted %d, accounting %+v; want %d complete events", n, sizes, a.Emitted(), s, crossings)
 			}
 		})
+	}
+}
+
+// runToEnd runs a, publishes the stream's batches to it and waits until
+// Run returns at the end-of-run markers.
+func runToEnd(t *testing.T, a *Assembler, nc *nats.Conn, subjects transport.Subjects, stream *sourced) {
+	t.Helper()
+	done := make(chan error, 1)
+	go func() { done <- a.Run(context.Background()) }()
+	<-a.Ready()
+	for i, data := range stream.batches {
+		if err := nc.Publish(subjects.Fragments(0, stream.sources[i]), data); err != nil {
+			t.Fatal(err)
+		}
+	}
+	select {
+	case err := <-done:
+		if err != nil {
+			t.Fatal(err)
+		}
+	case <-time.After(30 * time.Second):
+		t.Fatal("Run did not end at the end-of-run markers")
 	}
 }

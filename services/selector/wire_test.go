@@ -375,16 +375,7 @@ func TestWireDecisionsMatchProtoPath(t *testing.T) {
 // A decision reused after its batch was published carries nothing of the
 // event it was used for before.
 func TestReusedDecisionsAreClean(t *testing.T) {
-	srv, err := transport.Embedded("127.0.0.1", -1)
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
-	nc, err := transport.ConnectInProcess(srv, "t")
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(nc.Close)
+	nc := embeddedSelectorConn(t)
 	var mu sync.Mutex
 	var got []*pb.Decision
 	sub, err := nc.Subscribe(transport.Subjects{}.Decisions(), func(m *nats.Msg) {
