@@ -12,7 +12,6 @@ import (
 	"google.golang.org/protobuf/proto"
 
 	"github.com/bunchsieve/bunchsieve/builder"
-	"github.com/bunchsieve/bunchsieve/detector"
 	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
 	"github.com/bunchsieve/bunchsieve/services/emulator"
 	"github.com/bunchsieve/bunchsieve/services/transport"
@@ -36,15 +35,7 @@ func (c *sourced) Flush() error { return nil }
 // does, end-of-run markers last; and the source ids.
 func oneCrossingBatches(t *testing.T, crossings uint64) (*sourced, []uint32) {
 	t.Helper()
-	d := detector.DefaultDescription()
-	part, err := detector.NewPartition(d.Geometry, 16)
-	if err != nil {
-		t.Fatal(err)
-	}
-	gen, err := detector.NewSimpleGenerator(d, part, 9, detector.SimpleConfig{})
-	if err != nil {
-		t.Fatal(err)
-	}
+	gen, part := toyGenerator(t, 9)
 	var c sourced
 	emu, err := emulator.New(emulator.Config{Crossings: crossings, BatchCrossings: 1}, gen, part.SourceIDs(), &c, prometheus.NewRegistry())
 	if err != nil {

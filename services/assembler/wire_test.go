@@ -30,15 +30,7 @@ func (c *collect) Flush() error { return nil }
 // crossings of 16 sources, end-of-run markers included.
 func sampleBatches(tb testing.TB, crossings uint64, faults []emulator.Fault) [][]byte {
 	tb.Helper()
-	d := detector.DefaultDescription()
-	part, err := detector.NewPartition(d.Geometry, 16)
-	if err != nil {
-		tb.Fatal(err)
-	}
-	gen, err := detector.NewSimpleGenerator(d, part, 5, detector.SimpleConfig{})
-	if err != nil {
-		tb.Fatal(err)
-	}
+	gen, part := toyGenerator(tb, 5)
 	var c collect
 	emu, err := emulator.New(emulator.Config{Crossings: crossings, Faults: faults}, gen, part.SourceIDs(), &c, prometheus.NewRegistry())
 	if err != nil {
@@ -358,4 +350,20 @@ func BenchmarkBuildService(b *testing.B) {
 	b.ReportMetric(float64(crossings)/b.Elapsed().Seconds(), "events/s")
 	b.ReportMetric(cpu.Seconds()*1e6/float64(crossings), "cpu-us/event")
 	b.ReportMetric(float64(crossings*16)/b.Elapsed().Seconds(), "fragments/s")
+}
+
+// toyGenerator returns the toy generator with seed over 16 calorimeter
+// sources of the built-in description, and their partition.
+func toyGenerator(tb testing.TB, seed uint64) (*detector.SimpleGenerator, *detector.Partition) {
+	tb.Helper()
+	d := detector.DefaultDescription()
+	part, err := detector.NewPartition(d.Geometry, 16)
+	if err != nil {
+		tb.Fatal(err)
+	}
+	gen, err := detector.NewSimpleGenerator(d, part, seed, detector.SimpleConfig{})
+	if err != nil {
+		tb.Fatal(err)
+	}
+	return gen, part
 }
