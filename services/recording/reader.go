@@ -23,11 +23,12 @@ type Reader struct {
 	path    string
 	header  pb.StreamHeader
 	trailer *pb.StreamTrailer
-	offset  int64 // of the next unread byte
-	frameAt int64 // offset of the frame being read
-	stored  []byte
-	raw     []byte
-	pos     int // next batch inside raw
+	offset  int64  // of the next unread byte
+	frameAt int64  // offset of the frame being read
+	stored  []byte // the frame as stored
+	dec     []byte // storage for decompressed frames
+	raw     []byte // the frame's batches: stored, or decompressed into dec
+	pos     int    // next batch inside raw
 	err     error
 
 	onTruth  func(*TruthRecord)
@@ -40,7 +41,10 @@ func Open(path string) (*Reader, error) {
 	if err != nil {
 		return nil, fmt.Errorf("recording: %w", err)
 	}
-	r := &Reader{f: f, r: bufio.NewReaderSize(f, 1<<20), path: path}
+	// Frame bodies (up to a MiB) are read past the buffer, straight into
+	// the frame's storage: bufio reads into the caller's slice when its
+	// own buffer is empty and smaller than the read.
+	r := &Reader{f: f, r: bufio.NewReaderSize(f, 64<<10), path: path}
 	var head [len(Magic) + 8]byte
 	if _, err := io.ReadFull(r.r, head[:]); err != nil {
 		f.Close()
@@ -156,10 +160,10 @@ func (r *Reader) readFrame() error {
 	raw := r.stored
 	if codec == codecS2 {
 		var err error
-		if cap(r.raw) < int(rawLen) {
-			r.raw = make([]byte, rawLen)
+		if cap(r.dec) < int(rawLen) {
+			r.dec = make([]byte, rawLen)
 		}
-		raw, err = s2.Decode(r.raw[:cap(r.raw)], r.stored)
+		raw, err = s2.Decode(r.dec[:cap(r.dec)], r.stored)
 		if err != nil || len(raw) != int(rawLen) {
 			return r.fail(r.offset, "frame does not decompress", ErrCorrupt)
 		}
@@ -182,14 +186,9 @@ func (r *Reader) readFrame() error {
 		r.raw, r.pos = r.raw[:0], 0
 		return r.decodeTruth(raw)
 	}
-	// Decoding into r.raw's storage, or reading raw frames straight from
-	// r.stored, both leave the batches in raw until the next frame.
-	if codec == codecNone {
-		r.raw = append(r.raw[:0], raw...)
-	} else {
-		r.raw = raw
-	}
-	r.pos = 0
+	// The batches stay in raw, a view of r.stored or r.dec, until the
+	// next frame is read.
+	r.raw, r.pos = raw, 0
 	return nil
 }
 

@@ -76,8 +76,18 @@ func (fz *fuser) decodeBatch(data []byte, pool *slotCache, out []*pb.Fragment, i
 // decode decodes one Fragment message into s and reports whether its
 // checksum matches its content.
 func (fz *fuser) decode(data []byte, s *slot) (intact bool, err error) {
-	if sum, ok := fz.fuse(data, s); ok {
-		return sum == s.f.Checksum, nil
+	var hdr [10]uint64
+	payload, num, ok := canonicalFields(data, &hdr)
+	return fz.decodeFields(data, ok, &hdr, payload, num, s)
+}
+
+// decodeFields is decode for a message canonicalFields has read, with
+// its outcome.
+func (fz *fuser) decodeFields(data []byte, canonical bool, hdr *[10]uint64, payload []byte, num byte, s *slot) (intact bool, err error) {
+	if canonical {
+		if sum, ok := fz.fuseFields(hdr, payload, num, s); ok {
+			return sum == s.f.Checksum, nil
+		}
 	}
 	s.fused = false
 	if err := decodeFragment(data, s); err != nil {
@@ -94,39 +104,18 @@ func (fz *fuser) decode(data []byte, s *slot) (intact bool, err error) {
 // It reports false, with s in an unspecified state, for any other
 // layout.
 func (fz *fuser) fuse(data []byte, s *slot) (uint32, bool) {
-	if fz.table == nil {
+	var hdr [10]uint64
+	payload, num, ok := canonicalFields(data, &hdr)
+	if !ok {
 		return 0, false
 	}
-	var hdr [10]uint64 // by field number: 1-6 and 9 are used
-	var payload []byte
-	seen := false
-	for len(data) > 0 {
-		// Fields 1 to 15 have one-byte tags; a longer tag is an unknown
-		// field.
-		tag := data[0]
-		data = data[1:]
-		num, typ := tag>>3, protowire.Type(tag&7)
-		switch {
-		case typ == protowire.VarintType && (num >= 1 && num <= 6 || num == 9):
-			v, n := protowire.ConsumeVarint(data)
-			if n < 0 {
-				return 0, false
-			}
-			data = data[n:]
-			hdr[num] = v // a later occurrence wins, as protobuf decodes
-		case typ == protowire.BytesType && (num == 7 || num == 8) && !seen:
-			v, n := protowire.ConsumeBytes(data)
-			if n < 0 || num == 8 && n != 1 {
-				// A muon payload with hits takes the general path.
-				return 0, false
-			}
-			data = data[n:]
-			payload, seen = v, true
-		default:
-			return 0, false
-		}
-	}
-	if !seen {
+	return fz.fuseFields(&hdr, payload, num, s)
+}
+
+// fuseFields is fuse for a message canonicalFields has read.
+func (fz *fuser) fuseFields(hdr *[10]uint64, payload []byte, num byte, s *slot) (uint32, bool) {
+	if fz.table == nil || num == 8 && len(payload) > 0 {
+		// A muon payload with hits takes the general path.
 		return 0, false
 	}
 	// An empty muon payload (a sector without hits, as most are) has the
@@ -138,8 +127,7 @@ func (fz *fuser) fuse(data []byte, s *slot) (uint32, bool) {
 	}
 
 	f := &s.f
-	f.SourceId, f.Run, f.Orbit, f.Bcid = uint32(hdr[1]), uint32(hdr[2]), hdr[3], uint32(hdr[4])
-	f.TimestampNs, f.Status, f.Checksum = int64(hdr[5]), uint32(hdr[6]), uint32(hdr[9])
+	setHeader(f, hdr)
 	f.Payload = nil
 
 	le := binary.LittleEndian
@@ -259,6 +247,47 @@ func (fz *fuser) fuse(data []byte, s *slot) (uint32, bool) {
 	s.towers = out[:j]
 	s.fused = true
 	return crc32.Update(sum, castagnoli, buf[:n]), true
+}
+
+// canonicalFields reads a Fragment message in the layout the one-pass
+// decoder takes: one-byte tags (fields 1 to 15), the varint header fields
+// 1 to 6 and the checksum, field 9, in any order (a later occurrence
+// winning, as protobuf decodes), and exactly one payload, field 7 or 8. It
+// leaves the header values in hdr by field number and returns the payload
+// and its field number; ok is false for any other layout.
+func canonicalFields(data []byte, hdr *[10]uint64) (payload []byte, num byte, ok bool) {
+	seen := false
+	for len(data) > 0 {
+		tag := data[0]
+		data = data[1:]
+		n, typ := tag>>3, protowire.Type(tag&7)
+		switch {
+		case typ == protowire.VarintType && (n >= 1 && n <= 6 || n == 9):
+			v, k := protowire.ConsumeVarint(data)
+			if k < 0 {
+				return nil, 0, false
+			}
+			data = data[k:]
+			hdr[n] = v
+		case typ == protowire.BytesType && (n == 7 || n == 8) && !seen:
+			v, k := protowire.ConsumeBytes(data)
+			if k < 0 {
+				return nil, 0, false
+			}
+			data = data[k:]
+			payload, num, seen = v, n, true
+		default:
+			return nil, 0, false
+		}
+	}
+	return payload, num, seen
+}
+
+// setHeader sets the header fields and the checksum of f from the values
+// canonicalFields read, converted as protobuf converts them.
+func setHeader(f *pb.Fragment, hdr *[10]uint64) {
+	f.SourceId, f.Run, f.Orbit, f.Bcid = uint32(hdr[1]), uint32(hdr[2]), hdr[3], uint32(hdr[4])
+	f.TimestampNs, f.Status, f.Checksum = int64(hdr[5]), uint32(hdr[6]), uint32(hdr[9])
 }
 
 // keep is 1 when a tower of index tw and count ct is one the selection

@@ -77,8 +77,37 @@ var ErrNoMenu = errors.New("replay: no menu to decide with")
 // and configuration give the same events and decisions, whatever
 // Workers.
 func Run(ctx context.Context, src Source, cfg Config, sink func(*Event) error) (Summary, error) {
+	p, err := newPlan(src.Sample(), cfg)
+	if err != nil {
+		return Summary{}, err
+	}
+	switch s := src.(type) {
+	case *StreamSource:
+		return p.runLanes(ctx, s, sink)
+	case *GeneratorSource:
+		return p.runPipeline(ctx, s, sink)
+	}
+	return Summary{}, fmt.Errorf("replay: unknown source %T", src)
+}
+
+// plan is what every way of running a replay shares: the settings with
+// their defaults, the tower table, the prescales and the builder's
+// configuration.
+type plan struct {
+	cfg          Config
+	sample       Sample
+	grid         trigger.Grid
+	table        *towerTable
+	prescales    [][]int
+	prescaleSets []string
+	nrules       []int
+	bc           builder.Config
+	lumiOrbits   uint64
+}
+
+func newPlan(sample Sample, cfg Config) (*plan, error) {
 	if len(cfg.Menus) == 0 {
-		return Summary{}, ErrNoMenu
+		return nil, ErrNoMenu
 	}
 	if cfg.Workers <= 0 {
 		cfg.Workers = 2
@@ -86,12 +115,9 @@ func Run(ctx context.Context, src Source, cfg Config, sink func(*Event) error) (
 	if cfg.ChunkEvents <= 0 {
 		cfg.ChunkEvents = 32
 	}
-	sample := src.Sample()
 	g := sample.Description.Geometry
-	grid := trigger.Grid{EtaBins: g.EtaBins, PhiBins: g.PhiBins, EtaMin: -g.EtaMax, EtaStep: g.EtaStep}
-
-	var sum Summary
-	deciders := make([]*decider, len(cfg.Menus))
+	p := &plan{cfg: cfg, sample: sample, table: newTowerTable(g),
+		grid: trigger.Grid{EtaBins: g.EtaBins, PhiBins: g.PhiBins, EtaMin: -g.EtaMax, EtaStep: g.EtaStep}}
 	for m, menu := range cfg.Menus {
 		set := menu.ActiveSet
 		if m < len(cfg.PrescaleSets) && cfg.PrescaleSets[m] != "" {
@@ -99,43 +125,110 @@ func Run(ctx context.Context, src Source, cfg Config, sink func(*Event) error) (
 		}
 		ps, err := menu.Prescales(set)
 		if err != nil {
-			return sum, fmt.Errorf("replay: menu %s: %w", menu.Name, err)
+			return nil, fmt.Errorf("replay: menu %s: %w", menu.Name, err)
 		}
 		if m < len(cfg.Prescales) && cfg.Prescales[m] != nil {
 			if len(cfg.Prescales[m]) != len(menu.Rules) {
-				return sum, fmt.Errorf("replay: menu %s has %d rules, given %d prescales", menu.Name, len(menu.Rules), len(cfg.Prescales[m]))
+				return nil, fmt.Errorf("replay: menu %s has %d rules, given %d prescales", menu.Name, len(menu.Rules), len(cfg.Prescales[m]))
 			}
 			ps = append([]int(nil), cfg.Prescales[m]...)
 		}
-		deciders[m] = &decider{prescale: ps, counters: make([]uint64, len(ps))}
-		sum.PrescaleSets = append(sum.PrescaleSets, set)
+		p.prescales = append(p.prescales, ps)
+		p.prescaleSets = append(p.prescaleSets, set)
+		p.nrules = append(p.nrules, len(menu.Rules))
 	}
-	// Each worker evaluates conditions with selectors of its own: only
-	// their pass bits are used, and the prescales are applied in order by
-	// the deciding goroutine, so worker timing cannot change what is kept.
-	table := newTowerTable(g)
+	p.bc = cfg.Builder
+	p.bc.Run = sample.Run
+	p.bc.Sources = sample.Sources
+	p.bc.SkipChecksum = sample.Kind == "generator"
+	p.bc.WhenFull = builder.EvictOldest
+	p.lumiOrbits = sample.Description.Config.LumiSliceOrbits
+	if p.lumiOrbits == 0 {
+		p.lumiOrbits = 1 << 18
+	}
+	// The menus compile here once, so that a bad menu fails before any
+	// goroutine starts.
+	if _, err := p.newWorker(); err != nil {
+		return nil, err
+	}
+	return p, nil
+}
+
+// newWorker returns a worker with selectors of its own. Each worker
+// evaluates conditions only: their pass bits are used, and the prescales
+// are applied in order by the deciding goroutine, so worker timing cannot
+// change what is kept.
+func (p *plan) newWorker() (*worker, error) {
+	w := &worker{table: p.table, values: p.cfg.Values}
+	for _, menu := range p.cfg.Menus {
+		sel, err := trigger.NewSelector(menu, p.grid)
+		if err != nil {
+			return nil, fmt.Errorf("replay: %w", err)
+		}
+		w.sels = append(w.sels, sel)
+	}
+	w.feats = make([]trigger.Features, len(p.cfg.Menus))
+	return w, nil
+}
+
+func (p *plan) newChunk() *chunk {
+	return newChunk(p.cfg.ChunkEvents, p.nrules, len(p.cfg.Values))
+}
+
+// summary starts a Summary with what the plan knows.
+func (p *plan) summary() Summary {
+	return Summary{PrescaleSets: p.prescaleSets}
+}
+
+// delivery hands decided events to the sink in emission order, applying
+// each menu's prescales as it goes. It is used by the deciding goroutine.
+type delivery struct {
+	p        *plan
+	sink     func(*Event) error
+	deciders []*decider
+	ev       Event
+	decided  uint64
+}
+
+func (p *plan) newDelivery(sink func(*Event) error) *delivery {
+	n := len(p.cfg.Menus)
+	d := &delivery{p: p, sink: sink, ev: Event{Passed: make([][]bool, n), Kept: make([][]bool, n), Accept: make([]bool, n)}}
+	for m, ps := range p.prescales {
+		d.deciders = append(d.deciders, &decider{prescale: ps, counters: make([]uint64, len(ps))})
+		d.ev.Kept[m] = make([]bool, p.nrules[m])
+	}
+	return d
+}
+
+// event delivers event i of c, the next one in emission order.
+func (d *delivery) event(c *chunk, i int) error {
+	e, ev := &c.events[i], &d.ev
+	nv := len(d.p.cfg.Values)
+	ev.Seq, ev.Run, ev.Orbit, ev.Bcid, ev.LumiSlice = d.decided, d.p.sample.Run, e.orbit, e.bcid, e.lumi
+	ev.Flags, ev.Missing, ev.Towers, ev.Truth = e.flags, e.missing, e.towers, e.truth
+	ev.Values = c.values[i*nv : (i+1)*nv]
+	for m, dc := range d.deciders {
+		n := d.p.nrules[m]
+		ev.Passed[m] = c.passed[m][i*n : (i+1)*n]
+		ev.Accept[m] = dc.apply(ev.Passed[m], ev.Kept[m])
+	}
+	d.decided++
+	return d.sink(ev)
+}
+
+// runPipeline runs a replay in stages: the source feeds the builder on
+// one goroutine, Config.Workers workers fill towers and compute features
+// chunk by chunk, and the calling goroutine delivers the chunks in order.
+func (p *plan) runPipeline(ctx context.Context, src *GeneratorSource, sink func(*Event) error) (Summary, error) {
+	cfg := p.cfg
+	sum := p.summary()
 	workers := make([]*worker, cfg.Workers)
 	for i := range workers {
-		w := &worker{table: table, values: cfg.Values}
-		for _, menu := range cfg.Menus {
-			sel, err := trigger.NewSelector(menu, grid)
-			if err != nil {
-				return sum, fmt.Errorf("replay: %w", err)
-			}
-			w.sels = append(w.sels, sel)
+		w, err := p.newWorker()
+		if err != nil {
+			return sum, err
 		}
-		w.feats = make([]trigger.Features, len(cfg.Menus))
 		workers[i] = w
-	}
-
-	bc := cfg.Builder
-	bc.Run = sample.Run
-	bc.Sources = sample.Sources
-	bc.SkipChecksum = sample.Kind == "generator"
-	bc.WhenFull = builder.EvictOldest
-	lumiOrbits := sample.Description.Config.LumiSliceOrbits
-	if lumiOrbits == 0 {
-		lumiOrbits = 1 << 18
 	}
 
 	ctx, cancel := context.WithCancel(ctx)
@@ -144,18 +237,14 @@ func Run(ctx context.Context, src Source, cfg Config, sink func(*Event) error) (
 	free := make(chan *chunk, inFlight)
 	ordered := make(chan *chunk, inFlight)
 	work := make(chan *chunk, inFlight)
-	nrules := make([]int, len(cfg.Menus))
-	for m, menu := range cfg.Menus {
-		nrules[m] = len(menu.Rules)
-	}
 	for range inFlight {
-		free <- newChunk(cfg.ChunkEvents, nrules, len(cfg.Values))
+		free <- p.newChunk()
 	}
 
 	pool := newFragmentPool()
-	fd := &feeder{pool: pool, cache: pool.cache(), table: table, decoders: cfg.Workers, truth: make(map[uint64]*recording.TruthRecord),
-		free: free, ordered: ordered, work: work, ctx: ctx, lumiOrbits: lumiOrbits}
-	b, err := builder.New(bc, fd.emit)
+	fd := &feeder{pool: pool, cache: pool.cache(),
+		free: free, ordered: ordered, work: work, ctx: ctx, lumiOrbits: p.lumiOrbits}
+	b, err := builder.New(p.bc, fd.emit)
 	if err != nil {
 		return sum, fmt.Errorf("replay: %w", err)
 	}
@@ -186,43 +275,29 @@ func Run(ctx context.Context, src Source, cfg Config, sink func(*Event) error) (
 	}()
 
 	var sinkErr error
-	ev := Event{Passed: make([][]bool, len(cfg.Menus)), Kept: make([][]bool, len(cfg.Menus)), Accept: make([]bool, len(cfg.Menus))}
-	for m := range cfg.Menus {
-		ev.Kept[m] = make([]bool, nrules[m])
-	}
-	var decided uint64
+	d := p.newDelivery(sink)
 	for c := range ordered {
 		<-c.ready
 		if sinkErr == nil {
 			for i := range c.n {
-				e := &c.events[i]
-				ev.Seq, ev.Run, ev.Orbit, ev.Bcid, ev.LumiSlice = decided, sample.Run, e.orbit, e.bcid, e.lumi
-				ev.Flags, ev.Missing, ev.Towers, ev.Truth = e.flags, e.missing, e.towers, e.truth
-				ev.Values = c.values[i*len(cfg.Values) : (i+1)*len(cfg.Values)]
-				for m, d := range deciders {
-					ev.Passed[m] = c.passed[m][i*nrules[m] : (i+1)*nrules[m]]
-					ev.Accept[m] = d.apply(ev.Passed[m], ev.Kept[m])
-				}
-				decided++
-				if err := sink(&ev); err != nil {
+				if err := d.event(c, i); err != nil {
 					sinkErr = err
 					cancel()
 					break
 				}
 			}
 			if cfg.Progress != nil {
-				cfg.Progress(decided, fd.done())
+				cfg.Progress(d.decided, fd.done())
 			}
 		}
 		free <- c
 	}
 	wg.Wait()
 	err = <-feedErr
-	sum.Events = decided
+	sum.Events = d.decided
 	sum.Builder = b.Stats()
 	sum.Batches, sum.Undecodable = fd.batches, fd.undecodable
 	sum.TruthRecords, sum.TruthMatched = fd.truthRecords, fd.truthMatched
-	sum.InputError = fd.inputErr
 	switch {
 	case sinkErr != nil:
 		return sum, sinkErr
@@ -262,6 +337,7 @@ func (d *decider) apply(passed, kept []bool) bool {
 
 // chunkEvent is what the feeder records of one emitted event.
 type chunkEvent struct {
+	seq        uint64 // emission order (lanes)
 	orbit      uint64
 	bcid, lumi uint32
 	flags      uint32
@@ -274,6 +350,7 @@ type chunkEvent struct {
 // chunk carries up to cap(events) events from the feeder through a
 // worker to the deciding goroutine.
 type chunk struct {
+	lane   int // the lane that made it (lanes)
 	n      int
 	events []chunkEvent
 	passed [][]bool // per menu, events x rules
@@ -302,30 +379,36 @@ type worker struct {
 }
 
 func (w *worker) process(c *chunk) {
-	nv := len(w.values)
 	for i := range c.n {
-		e := &c.events[i]
-		if w.table.wide != nil {
-			// A wide table has no fused slots; fill reads the fragments.
-			w.frags = w.frags[:0]
-			for _, s := range e.slots {
-				w.frags = append(w.frags, &s.f)
-			}
-			w.table.fill(w.frags, e.lumi, &w.ev)
-		} else {
-			w.table.fillSlots(e.slots, e.lumi, &w.ev)
+		w.event(c, i)
+	}
+}
+
+// event fills the towers of event i of c and evaluates every menu's
+// conditions on it.
+func (w *worker) event(c *chunk, i int) {
+	nv := len(w.values)
+	e := &c.events[i]
+	if w.table.wide != nil {
+		// A wide table has no fused slots; fill reads the fragments.
+		w.frags = w.frags[:0]
+		for _, s := range e.slots {
+			w.frags = append(w.frags, &s.f)
 		}
-		e.towers = w.ev.NumTowers()
-		for m, sel := range w.sels {
-			f := &w.feats[m]
-			sel.ComputeFeatures(&w.ev, f)
-			sel.DecideFeatures(f, e.lumi, &w.dec)
-			n := len(w.dec.Passed)
-			copy(c.passed[m][i*n:(i+1)*n], w.dec.Passed)
-			if m == 0 {
-				for k, q := range w.values {
-					c.values[i*nv+k] = q.Eval(f)
-				}
+		w.table.fill(w.frags, e.lumi, &w.ev)
+	} else {
+		w.table.fillSlots(e.slots, e.lumi, &w.ev)
+	}
+	e.towers = w.ev.NumTowers()
+	for m, sel := range w.sels {
+		f := &w.feats[m]
+		sel.ComputeFeatures(&w.ev, f)
+		sel.DecideFeatures(f, e.lumi, &w.dec)
+		n := len(w.dec.Passed)
+		copy(c.passed[m][i*n:(i+1)*n], w.dec.Passed)
+		if m == 0 {
+			for k, q := range w.values {
+				c.values[i*nv+k] = q.Eval(f)
 			}
 		}
 	}
@@ -338,11 +421,8 @@ type feeder struct {
 	ctx        context.Context
 	b          *builder.Builder
 	pool       *fragmentPool
-	cache      *slotCache  // the feeder's own, for sources that make fragments
-	table      *towerTable // for a source's decoders
-	decoders   int         // goroutines a source may decode with
-	truth      map[uint64]*recording.TruthRecord
-	spare      []*recording.TruthRecord
+	cache      *slotCache // the feeder's own, for the generator's fragments
+	truth      truthStore
 	free       chan *chunk
 	ordered    chan *chunk
 	work       chan *chunk
@@ -354,7 +434,6 @@ type feeder struct {
 
 	batches, undecodable       uint64
 	truthRecords, truthMatched uint64
-	inputErr                   string
 }
 
 func crossingKey(orbit uint64, bcid uint32) uint64 {
@@ -373,34 +452,10 @@ func (fd *feeder) add(f *pb.Fragment) {
 	}
 }
 
-// addChecked is add for a fragment whose checksum a decoding goroutine
-// has compared already: intact is the outcome.
-func (fd *feeder) addChecked(f *pb.Fragment, intact bool) {
-	if f.TimestampNs > fd.arrival {
-		fd.arrival = f.TimestampNs
-	}
-	if err := fd.b.AddChecked(f, intact, fd.arrival, fd.arrival); err != nil {
-		fd.pool.put(f)
-	}
-}
-
 // addTruth keeps a copy of a truth record until its event is emitted.
 func (fd *feeder) addTruth(rec *recording.TruthRecord) {
 	fd.truthRecords++
-	key := crossingKey(rec.Orbit, rec.Bcid)
-	t := fd.truth[key]
-	if t == nil {
-		if n := len(fd.spare); n > 0 {
-			t, fd.spare = fd.spare[n-1], fd.spare[:n-1]
-		} else {
-			t = new(recording.TruthRecord)
-		}
-		fd.truth[key] = t
-	}
-	hard, objs := t.Truth.Hard[:0], t.Truth.Objects[:0]
-	*t = *rec
-	t.Truth.Hard = append(hard, rec.Truth.Hard...)
-	t.Truth.Objects = append(objs, rec.Truth.Objects...)
+	fd.truth.keep(crossingKey(rec.Orbit, rec.Bcid), rec)
 }
 
 // emit is the builder's callback: it records the event into the current
@@ -422,9 +477,7 @@ func (fd *feeder) emit(be *builder.Event) {
 	// fused fragment's towers) and go back to the pool without a lookup.
 	e.slots = fd.pool.slotsOf(e.slots[:0], be.Fragments)
 	key := crossingKey(be.Orbit, be.Bcid)
-	e.truth = fd.truth[key]
-	if e.truth != nil {
-		delete(fd.truth, key)
+	if e.truth = fd.truth.take(key); e.truth != nil {
 		fd.truthMatched++
 	}
 	c.n++
@@ -443,7 +496,7 @@ func (fd *feeder) takeChunk() *chunk {
 			fd.pool.putSlots(e.slots)
 			e.slots = e.slots[:0]
 			if e.truth != nil {
-				fd.spare = append(fd.spare, e.truth)
+				fd.truth.recycle(e.truth)
 				e.truth = nil
 			}
 		}
@@ -470,8 +523,6 @@ func (fd *feeder) ship() {
 	}
 	fd.work <- c
 }
-
-func (fd *feeder) inputError(err error) { fd.inputErr = err.Error() }
 
 func (fd *feeder) progress(f float64) {
 	fd.fracMu.Lock()

@@ -1,24 +1,14 @@
 package replay
 
 import (
-	"context"
-	"errors"
-	"io"
-	"sync"
-
 	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
 	"github.com/bunchsieve/bunchsieve/services/recording"
 )
 
-// A stream is read in three stages, so that the goroutine owning the
-// builder does little more than build: one goroutine reads the file
-// (frame checksums and decompression, in recording.Reader) and copies
-// runs of batches into read jobs; decoding goroutines decode each job's
-// batches into fragments and compare every fragment's checksum with its
-// content; the feeder then hands the fragments, with the outcome, to the
-// builder in file order (builder.AddChecked). Truth records travel in the
-// jobs, in their place between the batches, so the feeder sees exactly
-// the sequence a single reader would.
+// A lane (lanes.go) reads its stream in jobs: runs of consecutive
+// batches, decoded as they are read, with the truth records that came
+// between them in their place, so the builder sees exactly the sequence a
+// single reader would. Every lane cuts the same jobs.
 
 // Job bounds: a job closes at whichever comes first.
 const (
@@ -27,10 +17,10 @@ const (
 )
 
 // readJob is a run of consecutive batches and truth records of a stream,
-// and, once decoded, their fragments.
+// decoded into fragments.
 type readJob struct {
-	data    []byte     // the batches' FragmentBatch bytes, back to back
 	batches []jobBatch // in file order
+	bytes   int        // the batches' encoded size
 	truth   []recording.TruthRecord
 	ntruth  int
 	truthAt []int // truth record i came before batch truthAt[i]
@@ -43,21 +33,19 @@ type readJob struct {
 
 	frags  []*pb.Fragment // decoded, batch by batch
 	intact []bool         // per fragment: its checksum matches
-	ready  chan struct{}  // closed once decoded
+	owner  []int32        // per fragment: the lane of its crossing
 }
 
-// jobBatch locates one batch in its job.
+// jobBatch locates the fragments of one batch in its job.
 type jobBatch struct {
-	start, end int // in data
-	first, n   int // its fragments in frags
-	bad        bool
+	first, n int // its fragments in frags
+	bad      bool
 }
 
 func (j *readJob) reset() {
-	j.data, j.batches, j.ntruth, j.truthAt = j.data[:0], j.batches[:0], 0, j.truthAt[:0]
+	j.batches, j.bytes, j.ntruth, j.truthAt = j.batches[:0], 0, 0, j.truthAt[:0]
 	j.offset, j.err, j.eof = 0, nil, false
-	j.frags, j.intact = j.frags[:0], j.intact[:0]
-	j.ready = make(chan struct{})
+	j.frags, j.intact, j.owner = j.frags[:0], j.intact[:0], j.owner[:0]
 }
 
 // addTruth keeps a copy of rec, reusing the storage of earlier jobs.
@@ -65,145 +53,54 @@ func (j *readJob) addTruth(rec *recording.TruthRecord) {
 	if j.ntruth == len(j.truth) {
 		j.truth = append(j.truth, recording.TruthRecord{})
 	}
-	t := &j.truth[j.ntruth]
-	hard, objs := t.Truth.Hard[:0], t.Truth.Objects[:0]
-	*t = *rec
-	t.Truth.Hard = append(hard, rec.Truth.Hard...)
-	t.Truth.Objects = append(objs, rec.Truth.Objects...)
+	copyTruth(&j.truth[j.ntruth], rec)
 	j.ntruth++
 	j.truthAt = append(j.truthAt, len(j.batches))
 }
 
-func (j *readJob) full() bool { return len(j.batches) >= jobBatches || len(j.data) >= jobBytes }
+func (j *readJob) full() bool { return len(j.batches) >= jobBatches || j.bytes >= jobBytes }
 
-// decode decodes every batch of j into fragments from cache and checks
-// their checksums, with fz.
-func (j *readJob) decode(cache *slotCache, fz *fuser) {
-	for i := range j.batches {
-		b := &j.batches[i]
-		b.first = len(j.frags)
-		var err error
-		j.frags, j.intact, err = fz.decodeBatch(j.data[b.start:b.end], cache, j.frags, j.intact)
-		b.n = len(j.frags) - b.first
-		b.bad = err != nil
-	}
+// copyTruth copies rec into t, reusing t's storage.
+func copyTruth(t, rec *recording.TruthRecord) {
+	hard, objs := t.Truth.Hard[:0], t.Truth.Objects[:0]
+	*t = *rec
+	t.Truth.Hard = append(hard, rec.Truth.Hard...)
+	t.Truth.Objects = append(objs, rec.Truth.Objects...)
 }
 
-// read is the reading goroutine: it fills jobs from free and sends each
-// to ordered, for the feeder, and to work, for the decoders, until the
-// end of the stream, damage, or ctx ends. It closes work and ordered
-// when it returns.
-func (s *StreamSource) read(ctx context.Context, free, ordered, work chan *readJob) {
-	defer close(work)
-	defer close(ordered)
-	var j *readJob
-	if s.sample.Truth {
-		s.r.OnTruth(func(rec *recording.TruthRecord) { j.addTruth(rec) })
-	}
-	send := func() bool {
-		j.offset = s.r.Offset()
-		select {
-		case ordered <- j:
-		case <-ctx.Done():
-			return false
-		}
-		work <- j
-		j = nil
-		return true
-	}
-	for {
-		if j == nil {
-			select {
-			case j = <-free:
-				j.reset()
-			case <-ctx.Done():
-				return
-			}
-		}
-		b, err := s.r.Next()
-		if err != nil {
-			if errors.Is(err, io.EOF) {
-				j.eof = true
-			} else {
-				j.err = err
-			}
-			send()
-			return
-		}
-		start := len(j.data)
-		j.data = append(j.data, b.Data...)
-		j.batches = append(j.batches, jobBatch{start: start, end: len(j.data)})
-		if j.full() && !send() {
-			return
-		}
-	}
+// truthStore keeps copies of truth records by crossing until their event
+// is emitted, reusing the storage of records whose events are done. It
+// is used by one goroutine.
+type truthStore struct {
+	byKey map[uint64]*recording.TruthRecord
+	spare []*recording.TruthRecord
 }
 
-func (s *StreamSource) feed(ctx context.Context, fd *feeder) error {
-	ctx, cancel := context.WithCancel(ctx)
-	decoders := max(fd.decoders, 1)
-	inFlight := decoders + 2
-	free := make(chan *readJob, inFlight)
-	ordered := make(chan *readJob, inFlight)
-	work := make(chan *readJob, inFlight)
-	for range inFlight {
-		free <- &readJob{}
+// keep stores a copy of rec under key, replacing an earlier one.
+func (s *truthStore) keep(key uint64, rec *recording.TruthRecord) {
+	if s.byKey == nil {
+		s.byKey = make(map[uint64]*recording.TruthRecord)
 	}
-	var wg sync.WaitGroup
-	wg.Go(func() { s.read(ctx, free, ordered, work) })
-	for range decoders {
-		wg.Go(func() {
-			cache := fd.pool.cache()
-			fz := newFuser(fd.table)
-			for j := range work {
-				j.decode(cache, fz)
-				close(j.ready)
-			}
-		})
+	t := s.byKey[key]
+	if t == nil {
+		if n := len(s.spare); n > 0 {
+			t, s.spare = s.spare[n-1], s.spare[:n-1]
+		} else {
+			t = new(recording.TruthRecord)
+		}
+		s.byKey[key] = t
 	}
-	// On an early return the reader stops at ctx and closes work, which
-	// ends the decoders.
-	defer wg.Wait()
-	defer cancel()
-	for j := range ordered {
-		<-j.ready
-		if err := ctx.Err(); err != nil {
-			return err
-		}
-		t := 0
-		for i := range j.batches {
-			for ; t < j.ntruth && j.truthAt[t] <= i; t++ {
-				fd.addTruth(&j.truth[t])
-			}
-			b := &j.batches[i]
-			fd.batches++
-			// End-of-run markers carry no fragments: a replay ends with
-			// the file.
-			if b.bad {
-				fd.undecodable++
-				continue
-			}
-			for k := b.first; k < b.first+b.n; k++ {
-				fd.addChecked(j.frags[k], j.intact[k])
-			}
-		}
-		for ; t < j.ntruth; t++ {
-			fd.addTruth(&j.truth[t])
-		}
-		if s.size > 0 {
-			fd.progress(float64(j.offset) / float64(s.size))
-		}
-		switch {
-		case j.err != nil:
-			// Damage: what came before has been delivered; the report
-			// covers it and says where reading stopped.
-			fd.inputError(j.err)
-			return nil
-		case j.eof:
-			return nil
-		}
-		free <- j
-	}
-	// The reader stopped without a last job: ctx ended.
-	return ctx.Err()
+	copyTruth(t, rec)
 }
+
+// take removes and returns the record of key, or nil.
+func (s *truthStore) take(key uint64) *recording.TruthRecord {
+	t := s.byKey[key]
+	if t != nil {
+		delete(s.byKey, key)
+	}
+	return t
+}
+
+// recycle gives back a record from take once nothing reads it.
+func (s *truthStore) recycle(t *recording.TruthRecord) { s.spare = append(s.spare, t) }

@@ -46,10 +46,14 @@ type Sample struct {
 type Source interface {
 	// Sample describes the source.
 	Sample() Sample
-	// feed offers every fragment to fd, in the source's order, until the
-	// end of the input or ctx ends.
-	feed(ctx context.Context, fd *feeder) error
+	// source keeps the set of sources to this package's: a stream
+	// replays on lanes (lanes.go), a generator through the feeder
+	// (GeneratorSource.feed).
+	source()
 }
+
+func (*StreamSource) source()    {}
+func (*GeneratorSource) source() {}
 
 // StreamSource reads a recorded stream file (docs/stream-format.md). It
 // is used by one Run and is not safe for concurrent use; Close it

@@ -1,0 +1,542 @@
+package replay
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"slices"
+	"sync"
+
+	"github.com/bunchsieve/bunchsieve/builder"
+	"github.com/bunchsieve/bunchsieve/services/recording"
+)
+
+// A stream replays on Config.Workers lanes. Handing one crossing's data
+// from goroutine to goroutine (reader, decoders, builder, workers) costs
+// more than the work itself: on this project's two-core machine such a
+// pipeline spent 32 µs of processor time per event where one goroutine
+// doing everything spent 20, the difference going into moving cache
+// lines between the processors. So each lane does everything for a share
+// of the crossings and shares almost nothing:
+//
+//   - every lane reads the whole file with a reader of its own, in the
+//     same jobs (reading is cheap next to decoding);
+//   - a crossing belongs to one lane (laneOf its key); a lane decodes in
+//     full, checksum included, only the fragments of its own crossings,
+//     and of the others only the header fields the builder needs;
+//   - every lane runs a builder of its own over every fragment, in file
+//     order, so all lanes' builders see the same input and emit the same
+//     events in the same order (the builder is deterministic); for that a
+//     lane needs each fragment's checksum verdict, which the fragment's
+//     owner sends it per job (a few hundred booleans), together with
+//     which batches failed to decode;
+//   - a lane fills the towers and computes the features of its own events
+//     the moment its builder emits them, while their towers are still in
+//     its processor's cache, and drops the others;
+//   - the calling goroutine merges the lanes' decided events by their
+//     emission number and delivers them in order.
+//
+// So the outputs do not depend on the number of lanes, and the builder's
+// accounting is each lane's (they are checked to agree).
+
+// laneOf returns the lane of the crossing with the given key: a
+// multiplicative hash, so that filling schemes with a period of two or
+// four bunch slots still spread evenly.
+func laneOf(key uint64, lanes int) int {
+	if lanes == 1 {
+		return 0
+	}
+	return int((key * 0x9e3779b97f4a7c15 >> 32) % uint64(lanes))
+}
+
+// verdicts is what a lane tells the others about one job: per batch
+// whether it failed to decode and where its fragments' verdicts start,
+// and per fragment whether its checksum matches (meaningful for the
+// lane's own fragments only). It is not changed once sent.
+type verdicts struct {
+	batches []jobBatch
+	intact  []bool
+}
+
+// laneChunks is the number of chunks each lane has in flight.
+const laneChunks = 4
+
+// lane replays its share of a stream; see above. It is used by one
+// goroutine.
+type lane struct {
+	k, n    int
+	p       *plan
+	ctx     context.Context
+	r       *recording.Reader
+	size    int64
+	pool    *fragmentPool
+	cache   *slotCache
+	fz      *fuser
+	w       *worker
+	b       *builder.Builder
+	truth   truthStore
+	arrival int64
+	seq     uint64 // events emitted by the builder so far
+	reading *readJob
+
+	to, from []chan *verdicts // per other lane; nil at k
+	results  chan<- *chunk
+	free     chan *chunk
+	cur      *chunk
+	progress func(float64) // set on lane 0
+
+	batches, undecodable       uint64
+	truthRecords, truthMatched uint64
+	inputErr                   string
+}
+
+// errLanesDisagree reports a broken invariant of the lanes: it is never
+// the input's fault.
+var errLanesDisagree = errors.New("replay: internal error: lanes disagree")
+
+// run replays the whole stream. It reads a job ahead, so that the
+// verdicts of a job are usually there when the lane comes to build it.
+func (l *lane) run() error {
+	defer func() {
+		for _, ch := range l.to {
+			if ch != nil {
+				close(ch)
+			}
+		}
+	}()
+	jobs := [2]*readJob{{}, {}}
+	var prev *readJob
+	for i := 0; ; i++ {
+		if err := l.ctx.Err(); err != nil {
+			return err
+		}
+		j := jobs[i%2]
+		l.read(j)
+		if err := l.send(j); err != nil {
+			return err
+		}
+		if prev != nil {
+			if err := l.feed(prev); err != nil {
+				return err
+			}
+		}
+		if j.eof || j.err != nil {
+			if err := l.feed(j); err != nil {
+				return err
+			}
+			break
+		}
+		prev = j
+	}
+	l.b.Flush()
+	l.ship()
+	return nil
+}
+
+// read fills j with the next batches of the stream, decoded (the lane's
+// own fragments in full, with their checksum verdicts, the others' header
+// fields only), and the truth records between them, up to the job bounds,
+// the end or damage. A batch is decoded as soon as it is read: its bytes
+// are valid only until the reader's next frame.
+func (l *lane) read(j *readJob) {
+	j.reset()
+	l.reading = j
+	for !j.full() {
+		b, err := l.r.Next()
+		if err != nil {
+			if errors.Is(err, io.EOF) {
+				j.eof = true
+			} else {
+				j.err = err
+			}
+			break
+		}
+		j.bytes += len(b.Data)
+		first, start := len(j.frags), len(j.intact)
+		j.frags, _, err = decodeBatchFunc(b.Data, l.cache, j.frags, func(data []byte, s *slot) error {
+			owner, intact, err := l.decodeFragment(data, s)
+			j.intact = append(j.intact, intact)
+			j.owner = append(j.owner, int32(owner))
+			return err
+		})
+		if err != nil {
+			j.intact, j.owner = j.intact[:start], j.owner[:start]
+		}
+		j.batches = append(j.batches, jobBatch{first: first, n: len(j.frags) - first, bad: err != nil})
+	}
+	j.offset = l.r.Offset()
+}
+
+// decodeFragment decodes one Fragment message into s and returns the lane
+// its crossing belongs to, and, for the lane's own fragments, whether its
+// checksum matches. Of the other lanes' fragments in the canonical layout
+// it keeps the header fields and the checksum only (canonicalFields reads
+// what decodeFragment would); anything else is decoded in full, by every
+// lane alike.
+func (l *lane) decodeFragment(data []byte, s *slot) (owner int, intact bool, err error) {
+	var hdr [10]uint64
+	payload, num, canonical := canonicalFields(data, &hdr)
+	if canonical && l.n > 1 {
+		if o := laneOf(crossingKey(hdr[3], uint32(hdr[4])), l.n); o != l.k {
+			setHeader(&s.f, &hdr)
+			s.fused, s.f.Payload = false, nil
+			return o, false, nil
+		}
+	}
+	if intact, err = l.fz.decodeFields(data, canonical, &hdr, payload, num, s); err != nil {
+		return 0, false, err
+	}
+	return laneOf(crossingKey(s.f.Orbit, s.f.Bcid), l.n), intact, nil
+}
+
+// send gives the verdicts of j to every other lane.
+func (l *lane) send(j *readJob) error {
+	if l.n == 1 {
+		return nil
+	}
+	v := &verdicts{batches: slices.Clone(j.batches), intact: slices.Clone(j.intact)}
+	for _, ch := range l.to {
+		if ch == nil {
+			continue
+		}
+		select {
+		case ch <- v:
+			continue
+		default:
+		}
+		// About to wait: what is decided goes out first, or the merge
+		// could be waiting for it while the lane we wait for waits for
+		// the merge.
+		l.ship()
+		select {
+		case ch <- v:
+		case <-l.ctx.Done():
+			return l.ctx.Err()
+		}
+	}
+	return nil
+}
+
+// receive returns the other lanes' verdicts on the job the lane is about
+// to build, indexed by lane (nil at k).
+func (l *lane) receive(got []*verdicts) ([]*verdicts, error) {
+	got = got[:0]
+	for _, ch := range l.from {
+		if ch == nil {
+			got = append(got, nil)
+			continue
+		}
+		var v *verdicts
+		var ok bool
+		select {
+		case v, ok = <-ch:
+		default:
+			l.ship() // as in send
+			select {
+			case v, ok = <-ch:
+			case <-l.ctx.Done():
+				return nil, l.ctx.Err()
+			}
+		}
+		if !ok {
+			// Another lane stopped early: cancelled, or its reader saw
+			// another file. The first is reported by whoever cancelled.
+			if err := l.ctx.Err(); err != nil {
+				return nil, err
+			}
+			return nil, fmt.Errorf("%w: a lane stopped reading early", errLanesDisagree)
+		}
+		got = append(got, v)
+	}
+	return got, nil
+}
+
+// feed hands the fragments of j to the builder in file order, each with
+// its owner's checksum verdict, and the truth records in their place.
+func (l *lane) feed(j *readJob) error {
+	var others []*verdicts
+	if l.n > 1 {
+		var err error
+		if others, err = l.receive(make([]*verdicts, 0, l.n)); err != nil {
+			return err
+		}
+	}
+	t := 0
+	for i := range j.batches {
+		for ; t < j.ntruth && j.truthAt[t] <= i; t++ {
+			l.addTruth(&j.truth[t])
+		}
+		b := &j.batches[i]
+		l.batches++
+		bad := b.bad
+		for _, v := range others {
+			if v != nil && v.batches[i].bad {
+				bad = true
+			}
+		}
+		if bad {
+			// A batch some lane could not decode is undecodable for all,
+			// as it is for a single reader.
+			l.undecodable++
+			for _, f := range j.frags[b.first : b.first+b.n] {
+				l.pool.put(f)
+			}
+			continue
+		}
+		for o, v := range others {
+			if v != nil && v.batches[i].n != b.n {
+				return fmt.Errorf("%w: lanes %d and %d read %d and %d fragments in a batch", errLanesDisagree, l.k, o, b.n, v.batches[i].n)
+			}
+		}
+		for k := range b.n {
+			x := b.first + k
+			intact := j.intact[x]
+			if o := int(j.owner[x]); o != l.k {
+				v := others[o]
+				intact = v.intact[v.batches[i].first+k]
+			}
+			f := j.frags[x]
+			if f.TimestampNs > l.arrival {
+				l.arrival = f.TimestampNs
+			}
+			// Arrival time is the largest fragment time so far, as for
+			// every replay: dead-source detection runs in event time.
+			if err := l.b.AddChecked(f, intact, l.arrival, l.arrival); err != nil {
+				l.pool.put(f)
+			}
+		}
+	}
+	for ; t < j.ntruth; t++ {
+		l.addTruth(&j.truth[t])
+	}
+	if l.progress != nil && l.size > 0 {
+		l.progress(float64(j.offset) / float64(l.size))
+	}
+	if j.err != nil {
+		// Damage: what came before has been delivered; the report covers
+		// it and says where reading stopped.
+		l.inputErr = j.err.Error()
+	}
+	return nil
+}
+
+// addTruth keeps a copy of a truth record of one of the lane's crossings
+// until its event is emitted; every lane counts every record.
+func (l *lane) addTruth(rec *recording.TruthRecord) {
+	l.truthRecords++
+	key := crossingKey(rec.Orbit, rec.Bcid)
+	if laneOf(key, l.n) != l.k {
+		return
+	}
+	l.truth.keep(key, rec)
+}
+
+// emit is the builder's callback: an event of the lane's own is decided
+// at once, into the current chunk; the others' fragments go back to the
+// pool.
+func (l *lane) emit(be *builder.Event) {
+	seq := l.seq
+	l.seq++
+	key := crossingKey(be.Orbit, be.Bcid)
+	if laneOf(key, l.n) != l.k {
+		l.pool.putAll(be.Fragments)
+		return
+	}
+	if l.cur == nil {
+		if l.cur = l.takeChunk(); l.cur == nil {
+			l.pool.putAll(be.Fragments)
+			return
+		}
+	}
+	c := l.cur
+	i := c.n
+	e := &c.events[i]
+	e.seq, e.orbit, e.bcid, e.flags, e.missing = seq, be.Orbit, be.Bcid, be.Flags, len(be.Missing)
+	e.lumi = uint32(be.Orbit/l.p.lumiOrbits) + 1
+	e.slots = l.pool.slotsOf(e.slots[:0], be.Fragments)
+	if e.truth = l.truth.take(key); e.truth != nil {
+		l.truthMatched++
+	}
+	l.w.event(c, i)
+	l.pool.putSlots(e.slots)
+	e.slots = e.slots[:0]
+	c.n++
+	if c.n == len(c.events) {
+		l.ship()
+	}
+}
+
+// takeChunk returns a free chunk with the truth records of its previous
+// use back in the lane's spares, or nil once the run is cancelled. It
+// waits only when every chunk of the lane is with the merge, and so has
+// nothing of its own to ship first.
+func (l *lane) takeChunk() *chunk {
+	select {
+	case c := <-l.free:
+		for i := range c.events[:c.n] {
+			e := &c.events[i]
+			if e.truth != nil {
+				l.truth.recycle(e.truth)
+				e.truth = nil
+			}
+		}
+		c.n = 0
+		return c
+	case <-l.ctx.Done():
+		return nil
+	}
+}
+
+// ship sends the current chunk, if it holds events, to the merge. The
+// results channel has room for every chunk there is, so it never waits.
+func (l *lane) ship() {
+	if c := l.cur; c != nil && c.n > 0 {
+		l.cur = nil
+		l.results <- c
+	}
+}
+
+// runLanes replays a stream on Config.Workers lanes and delivers their
+// events in emission order from the calling goroutine.
+func (p *plan) runLanes(ctx context.Context, s *StreamSource, sink func(*Event) error) (Summary, error) {
+	sum := p.summary()
+	n := p.cfg.Workers
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+
+	results := make(chan *chunk, n*laneChunks)
+	lanes := make([]*lane, n)
+	var frac float64
+	var fracMu sync.Mutex
+	for k := range lanes {
+		r := s.r
+		if k > 0 {
+			var err error
+			if r, err = recording.Open(s.sample.Path); err != nil {
+				return sum, fmt.Errorf("replay: %w", err)
+			}
+			defer r.Close()
+		}
+		w, err := p.newWorker()
+		if err != nil {
+			return sum, err
+		}
+		pool := newFragmentPool()
+		l := &lane{k: k, n: n, p: p, ctx: ctx, r: r, size: s.size, pool: pool, cache: pool.cache(),
+			fz: newFuser(p.table), w: w,
+			to: make([]chan *verdicts, n), from: make([]chan *verdicts, n),
+			results: results, free: make(chan *chunk, laneChunks)}
+		if l.b, err = builder.New(p.bc, l.emit); err != nil {
+			return sum, fmt.Errorf("replay: %w", err)
+		}
+		for range laneChunks {
+			c := p.newChunk()
+			c.lane = k
+			l.free <- c
+		}
+		if s.sample.Truth {
+			r.OnTruth(func(rec *recording.TruthRecord) { l.reading.addTruth(rec) })
+		}
+		lanes[k] = l
+	}
+	lanes[0].progress = func(f float64) {
+		fracMu.Lock()
+		frac = f
+		fracMu.Unlock()
+	}
+	// Verdict channels hold a few jobs, so that a lane that runs ahead
+	// rarely waits.
+	for i := range lanes {
+		for j := range lanes {
+			if i != j {
+				ch := make(chan *verdicts, 4)
+				lanes[i].to[j], lanes[j].from[i] = ch, ch
+			}
+		}
+	}
+
+	errs := make([]error, n)
+	var wg sync.WaitGroup
+	for k, l := range lanes {
+		wg.Go(func() { errs[k] = l.run() })
+	}
+	go func() {
+		wg.Wait()
+		close(results)
+	}()
+
+	// The merge: each lane's chunks arrive in its emission order; the
+	// next event is always at the head of one lane's queue.
+	d := p.newDelivery(sink)
+	queues := make([][]*chunk, n)
+	pos := make([]int, n)
+	var sinkErr error
+	next := func() bool {
+		for k, q := range queues {
+			if len(q) == 0 || q[0].events[pos[k]].seq != d.decided {
+				continue
+			}
+			c := q[0]
+			if err := d.event(c, pos[k]); err != nil {
+				sinkErr = err
+				cancel()
+				return false
+			}
+			if pos[k]++; pos[k] == c.n {
+				queues[k], pos[k] = q[1:], 0
+				lanes[k].free <- c
+				if p.cfg.Progress != nil {
+					fracMu.Lock()
+					f := frac
+					fracMu.Unlock()
+					p.cfg.Progress(d.decided, f)
+				}
+			}
+			return true
+		}
+		return false
+	}
+	for c := range results {
+		if sinkErr != nil {
+			continue
+		}
+		queues[c.lane] = append(queues[c.lane], c)
+		for next() {
+		}
+	}
+
+	l0 := lanes[0]
+	sum.Events = d.decided
+	sum.Builder = l0.b.Stats()
+	sum.Batches, sum.Undecodable = l0.batches, l0.undecodable
+	sum.TruthRecords = l0.truthRecords
+	for _, l := range lanes {
+		sum.TruthMatched += l.truthMatched
+	}
+	sum.InputError = l0.inputErr
+	if sinkErr != nil {
+		return sum, sinkErr
+	}
+	for _, err := range errs {
+		if err != nil && !errors.Is(err, context.Canceled) {
+			return sum, err
+		}
+	}
+	if err := ctx.Err(); err != nil {
+		return sum, err
+	}
+	for k, l := range lanes {
+		switch {
+		case len(queues[k]) > 0:
+			return sum, fmt.Errorf("%w: lane %d has events the others never reached", errLanesDisagree, k)
+		case l.seq != d.decided:
+			return sum, fmt.Errorf("%w: lane %d built %d events, %d were delivered", errLanesDisagree, k, l.seq, d.decided)
+		case l.b.Stats() != sum.Builder:
+			return sum, fmt.Errorf("%w: the builders of lanes 0 and %d differ in their accounting", errLanesDisagree, k)
+		case l.batches != l0.batches || l.undecodable != l0.undecodable || l.inputErr != l0.inputErr:
+			return sum, fmt.Errorf("%w: lanes 0 and %d read the stream differently", errLanesDisagree, k)
+		}
+	}
+	return sum, nil
+}
