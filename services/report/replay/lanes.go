@@ -95,8 +95,13 @@ type lane struct {
 // the input's fault.
 var errLanesDisagree = errors.New("replay: internal error: lanes disagree")
 
-// run replays the whole stream. It reads a job ahead, so that the
-// verdicts of a job are usually there when the lane comes to build it.
+// laneAhead is the number of jobs a lane reads before it must build the
+// oldest; the verdict channels hold twice as many.
+const laneAhead = 2
+
+// run replays the whole stream. A lane builds its oldest job once the
+// other lanes' verdicts on it are in; until then, it reads on, up to
+// laneAhead jobs, rather than wait.
 func (l *lane) run() error {
 	defer func() {
 		for _, ch := range l.to {
@@ -105,29 +110,42 @@ func (l *lane) run() error {
 			}
 		}
 	}()
-	jobs := [2]*readJob{{}, {}}
-	var prev *readJob
-	for i := 0; ; i++ {
+	var free, pending []*readJob
+	for range laneAhead {
+		free = append(free, &readJob{others: make([]*verdicts, l.n)})
+	}
+	ended := false
+	for {
 		if err := l.ctx.Err(); err != nil {
 			return err
 		}
-		j := jobs[i%2]
-		l.read(j)
-		if err := l.send(j); err != nil {
-			return err
-		}
-		if prev != nil {
-			if err := l.feed(prev); err != nil {
+		if !ended && len(free) > 0 {
+			j := free[len(free)-1]
+			free = free[:len(free)-1]
+			l.read(j)
+			if err := l.send(j); err != nil {
 				return err
 			}
-		}
-		if j.eof || j.err != nil {
-			if err := l.feed(j); err != nil {
+			pending = append(pending, j)
+			ended = j.eof || j.err != nil
+			if in, err := l.receive(pending[0], false); err != nil {
 				return err
+			} else if !in {
+				continue
 			}
+		}
+		if len(pending) == 0 {
 			break
 		}
-		prev = j
+		j := pending[0]
+		if _, err := l.receive(j, true); err != nil {
+			return err
+		}
+		if err := l.feed(j); err != nil {
+			return err
+		}
+		pending = pending[1:]
+		free = append(free, j)
 	}
 	l.b.Flush()
 	l.ship()
@@ -218,13 +236,13 @@ func (l *lane) send(j *readJob) error {
 	return nil
 }
 
-// receive returns the other lanes' verdicts on the job the lane is about
-// to build, indexed by lane (nil at k).
-func (l *lane) receive(got []*verdicts) ([]*verdicts, error) {
-	got = got[:0]
-	for _, ch := range l.from {
-		if ch == nil {
-			got = append(got, nil)
+// receive collects into j.others the other lanes' verdicts on j, the
+// oldest job the lane has not built: each lane's arrive in job order.
+// Without wait it takes only what has arrived and reports whether all
+// has; with wait it waits for the rest.
+func (l *lane) receive(j *readJob, wait bool) (bool, error) {
+	for o, ch := range l.from {
+		if ch == nil || j.others[o] != nil {
 			continue
 		}
 		var v *verdicts
@@ -232,36 +250,33 @@ func (l *lane) receive(got []*verdicts) ([]*verdicts, error) {
 		select {
 		case v, ok = <-ch:
 		default:
+			if !wait {
+				return false, nil
+			}
 			l.ship() // as in send
 			select {
 			case v, ok = <-ch:
 			case <-l.ctx.Done():
-				return nil, l.ctx.Err()
+				return false, l.ctx.Err()
 			}
 		}
 		if !ok {
 			// Another lane stopped early: cancelled, or its reader saw
 			// another file. The first is reported by whoever cancelled.
 			if err := l.ctx.Err(); err != nil {
-				return nil, err
+				return false, err
 			}
-			return nil, fmt.Errorf("%w: a lane stopped reading early", errLanesDisagree)
+			return false, fmt.Errorf("%w: a lane stopped reading early", errLanesDisagree)
 		}
-		got = append(got, v)
+		j.others[o] = v
 	}
-	return got, nil
+	return true, nil
 }
 
 // feed hands the fragments of j to the builder in file order, each with
 // its owner's checksum verdict, and the truth records in their place.
 func (l *lane) feed(j *readJob) error {
-	var others []*verdicts
-	if l.n > 1 {
-		var err error
-		if others, err = l.receive(make([]*verdicts, 0, l.n)); err != nil {
-			return err
-		}
-	}
+	others := j.others
 	t := 0
 	for i := range j.batches {
 		for ; t < j.ntruth && j.truthAt[t] <= i; t++ {
@@ -450,7 +465,7 @@ func (p *plan) runLanes(ctx context.Context, s *StreamSource, sink func(*Event) 
 	for i := range lanes {
 		for j := range lanes {
 			if i != j {
-				ch := make(chan *verdicts, 4)
+				ch := make(chan *verdicts, 2*laneAhead)
 				lanes[i].to[j], lanes[j].from[i] = ch, ch
 			}
 		}

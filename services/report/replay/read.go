@@ -34,6 +34,7 @@ type readJob struct {
 	frags  []*pb.Fragment // decoded, batch by batch
 	intact []bool         // per fragment: its checksum matches
 	owner  []int32        // per fragment: the lane of its crossing
+	others []*verdicts    // the other lanes' verdicts on the job, by lane
 }
 
 // jobBatch locates the fragments of one batch in its job.
@@ -46,6 +47,7 @@ func (j *readJob) reset() {
 	j.batches, j.bytes, j.ntruth, j.truthAt = j.batches[:0], 0, 0, j.truthAt[:0]
 	j.offset, j.err, j.eof = 0, nil, false
 	j.frags, j.intact, j.owner = j.frags[:0], j.intact[:0], j.owner[:0]
+	clear(j.others)
 }
 
 // addTruth keeps a copy of rec, reusing the storage of earlier jobs.
