@@ -50,6 +50,7 @@ func runReplay(ctx context.Context, e *env, args []string) error {
 	workers := fs.Int("workers", 2, "goroutines decoding fragments and computing features (the output does not depend on it)")
 	noProgress := fs.Bool("no-progress", false, "draw no progress bar even on a terminal")
 	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the replay and the report to `FILE`")
+	traceFile := fs.String("trace", "", "write an execution trace (go tool trace) of the replay and the report to `FILE`")
 	if err := parse(fs, args, 0); err != nil {
 		return err
 	}
@@ -109,6 +110,11 @@ func runReplay(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 	defer stopProfile() // on the early returns; a second call does nothing
+	stopTrace, err := startTrace(*traceFile)
+	if err != nil {
+		return err
+	}
+	defer stopTrace()
 	if err := os.MkdirAll(*out, 0o755); err != nil {
 		return err
 	}

@@ -107,8 +107,9 @@ func TestReplayBadFlags(t *testing.T) {
 }
 
 // TestReplayCPUProfile: --cpuprofile writes a profile in pprof's format
-// (gzip-compressed, RFC 1952: it starts 0x1f 0x8b), and an unwritable
-// path is a one-line error before anything runs or is written.
+// (gzip-compressed, RFC 1952: it starts 0x1f 0x8b), --trace an execution
+// trace, and an unwritable path is a one-line error before anything runs
+// or is written.
 func TestReplayCPUProfile(t *testing.T) {
 	dir := t.TempDir()
 	prof := filepath.Join(dir, "replay.prof")
@@ -119,6 +120,13 @@ func TestReplayCPUProfile(t *testing.T) {
 	data, err := os.ReadFile(prof)
 	if err != nil || len(data) < 2 || data[0] != 0x1f || data[1] != 0x8b {
 		t.Fatalf("profile %d bytes, %v: not gzip", len(data), err)
+	}
+	// --trace writes Go's execution trace format, which starts with
+	// "go 1." and the format version (runtime/trace).
+	trace := filepath.Join(dir, "replay.trace")
+	code, _, stderr = runCLI(t, time.Minute, "replay", "--generate", "200", "--mu", "10", "--out", filepath.Join(dir, "out3"), "--trace", trace)
+	if data, err := os.ReadFile(trace); code != 0 || err != nil || !strings.HasPrefix(string(data), "go 1.") {
+		t.Fatalf("--trace: exit %d, %s, %v", code, stderr, err)
 	}
 	code, _, stderr = runCLI(t, time.Minute, "replay", "--generate", "10", "--out", filepath.Join(dir, "out2"), "--cpuprofile", filepath.Join(dir, "missing", "p.prof"))
 	if code == 0 || strings.Count(stderr, "\n") != 1 || !strings.Contains(stderr, "cpu profile") {
