@@ -19,6 +19,8 @@ import (
 // use.
 type Reader struct {
 	f       *os.File
+	size    int64 // the bytes of f read: its length when opened
+	clone   bool  // f belongs to the Reader this one was cloned from
 	r       *bufio.Reader
 	path    string
 	header  pb.StreamHeader
@@ -35,50 +37,77 @@ type Reader struct {
 	truthRec TruthRecord
 }
 
-// Open opens path and reads its header.
+// Open opens path and reads its header. The reader reads the file as
+// long as it was when opened: a file still being written ends, for it,
+// without a trailer (ErrTruncated).
 func Open(path string) (*Reader, error) {
 	f, err := os.Open(path)
 	if err != nil {
 		return nil, fmt.Errorf("recording: %w", err)
 	}
+	info, err := f.Stat()
+	if err != nil {
+		f.Close()
+		return nil, fmt.Errorf("recording: %w", err)
+	}
+	r := newReader(f, path, info.Size())
+	if err := r.readHeader(); err != nil {
+		f.Close()
+		return nil, err
+	}
+	return r, nil
+}
+
+// Clone returns a reader of the same stream from its start, reading the
+// bytes r reads (the file as long as it was when r was opened) through a
+// read position of its own, so that goroutines can each read the whole
+// stream with a Reader of their own. The clone shares r's file: closing
+// the clone does nothing, and it must not be used once r is closed.
+func (r *Reader) Clone() (*Reader, error) {
+	c := newReader(r.f, r.path, r.size)
+	c.clone = true
+	if err := c.readHeader(); err != nil {
+		return nil, err
+	}
+	return c, nil
+}
+
+func newReader(f *os.File, path string, size int64) *Reader {
 	// Frame bodies (up to a MiB) are read past the buffer, straight into
 	// the frame's storage: bufio reads into the caller's slice when its
 	// own buffer is empty and smaller than the read.
-	r := &Reader{f: f, r: bufio.NewReaderSize(f, 64<<10), path: path}
+	return &Reader{f: f, size: size, path: path, r: bufio.NewReaderSize(io.NewSectionReader(f, 0, size), 64<<10)}
+}
+
+// readHeader reads and checks the stream header.
+func (r *Reader) readHeader() error {
 	var head [len(Magic) + 8]byte
 	if _, err := io.ReadFull(r.r, head[:]); err != nil {
-		f.Close()
-		return nil, r.fail(0, "file shorter than its header", ErrTruncated)
+		return r.fail(0, "file shorter than its header", ErrTruncated)
 	}
 	if string(head[:len(Magic)]) != Magic {
-		f.Close()
-		return nil, r.fail(0, "not a bunchsieve stream file (bad magic)", ErrCorrupt)
+		return r.fail(0, "not a bunchsieve stream file (bad magic)", ErrCorrupt)
 	}
 	n := binary.LittleEndian.Uint32(head[len(Magic):])
 	sum := binary.LittleEndian.Uint32(head[len(Magic)+4:])
 	if n > maxFrame {
-		f.Close()
-		return nil, r.fail(int64(len(Magic)), fmt.Sprintf("header length %d too large", n), ErrCorrupt)
+		return r.fail(int64(len(Magic)), fmt.Sprintf("header length %d too large", n), ErrCorrupt)
 	}
 	hb := make([]byte, n)
 	if _, err := io.ReadFull(r.r, hb); err != nil {
-		f.Close()
-		return nil, r.fail(int64(len(head)), "file ends inside the header", ErrTruncated)
+		return r.fail(int64(len(head)), "file ends inside the header", ErrTruncated)
 	}
 	if crc32.Checksum(hb, castagnoli) != sum {
-		f.Close()
-		return nil, r.fail(int64(len(head)), "header checksum mismatch", ErrCorrupt)
+		return r.fail(int64(len(head)), "header checksum mismatch", ErrCorrupt)
 	}
 	if err := proto.Unmarshal(hb, &r.header); err != nil {
-		f.Close()
-		return nil, r.fail(int64(len(head)), "header does not decode: "+err.Error(), ErrCorrupt)
+		return r.fail(int64(len(head)), "header does not decode: "+err.Error(), ErrCorrupt)
 	}
 	if v := r.header.FormatVersion; v != FormatVersion && v != FormatVersionTruth {
-		f.Close()
-		return nil, r.fail(int64(len(head)), fmt.Sprintf("format version %d, this build reads %d and %d", v, FormatVersion, FormatVersionTruth), ErrCorrupt)
+		return r.fail(int64(len(head)), fmt.Sprintf("format version %d, this build reads %d and %d", v, FormatVersion, FormatVersionTruth), ErrCorrupt)
 	}
 	r.offset = int64(len(head)) + int64(n)
-	return r, nil
+	return nil
 }
 
 func (r *Reader) fail(off int64, reason string, kind error) error {
@@ -192,8 +221,13 @@ func (r *Reader) readFrame() error {
 	return nil
 }
 
-// Close closes the file.
-func (r *Reader) Close() error { return r.f.Close() }
+// Close closes the file, unless r is a clone.
+func (r *Reader) Close() error {
+	if r.clone {
+		return nil
+	}
+	return r.f.Close()
+}
 
 // Offset returns the byte offset in the file of the next unread frame,
 // for progress reports.

@@ -184,3 +184,62 @@ func FuzzReader(f *testing.F) {
 		}
 	})
 }
+
+// A clone reads the same batches as the reader it came from, through a
+// position of its own, interleaved with it; both read the file as long as
+// it was when the first was opened, so bytes appended later (a file still
+// being written) are seen by neither, and both end at the same place.
+func TestCloneReadsTheSameBytes(t *testing.T) {
+	path, sent := writeSample(t, 3000, 40)
+	data, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Keep the first two thirds only: the copy ends inside a frame.
+	cut := filepath.Join(t.TempDir(), "growing.bss")
+	if err := os.WriteFile(cut, data[:len(data)*2/3], 0o644); err != nil {
+		t.Fatal(err)
+	}
+	r, err := Open(cut)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer r.Close()
+	c, err := r.Clone()
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Closing a clone leaves the file open for the others.
+	if c2, err := r.Clone(); err != nil || c2.Close() != nil {
+		t.Fatalf("clone: %v", err)
+	}
+	// The rest of the file arrives after both were opened.
+	f, err := os.OpenFile(cut, os.O_APPEND|os.O_WRONLY, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := f.Write(data[len(data)*2/3:]); err != nil {
+		t.Fatal(err)
+	}
+	f.Close()
+	var errs [2]error
+	n := 0
+	for errs[0] == nil || errs[1] == nil {
+		var got [2]Batch
+		for i, rd := range []*Reader{r, c} {
+			if errs[i] == nil {
+				got[i], errs[i] = rd.Next()
+			}
+		}
+		if errs[0] != nil || errs[1] != nil {
+			continue
+		}
+		if !bytes.Equal(got[0].Data, got[1].Data) || !bytes.Equal(got[0].Data, sent[n]) {
+			t.Fatalf("batch %d differs between the reader, its clone and what was written", n)
+		}
+		n++
+	}
+	if n == 0 || n >= len(sent) || !errors.Is(errs[0], ErrTruncated) || errs[0].Error() != errs[1].Error() {
+		t.Fatalf("after %d of %d batches: reader %v, clone %v; want both to end truncated at the same place", n, len(sent), errs[0], errs[1])
+	}
+}

@@ -32,11 +32,14 @@ type slot struct {
 	// has a nil Payload, and towers holds the towers fill makes of it.
 	fused  bool
 	towers []towerWord
+	// header is set when only the header fields and the checksum were
+	// read (a lane's view of another lane's fragment).
+	header bool
 }
 
 // fragmentPool hands out reusable fragments. It is safe for concurrent
-// use: decoding goroutines take slots through slotCaches of their own,
-// and the feeder gives them back once their events have been decided.
+// use (a generator's feeder and workers share one); each lane has one of
+// its own, which its lock costs little.
 type fragmentPool struct {
 	mu    sync.Mutex
 	free  []*slot
@@ -128,9 +131,9 @@ func (p *fragmentPool) putSlots(ss []*slot) {
 // cache returns a slotCache of p.
 func (p *fragmentPool) cache() *slotCache { return &slotCache{pool: p} }
 
-// slotCache takes slots from its pool a block at a time, so that a
-// decoding goroutine locks the pool once per block rather than once per
-// fragment. It is used by one goroutine.
+// slotCache takes slots from its pool a block at a time, so that its
+// goroutine locks the pool once per block rather than once per fragment.
+// It is used by one goroutine.
 type slotCache struct {
 	pool *fragmentPool
 	free []*slot
@@ -145,7 +148,7 @@ func (c *slotCache) get() *slot {
 	n := len(c.free) - 1
 	s := c.free[n]
 	c.free = c.free[:n]
-	s.fused = false
+	s.fused, s.header = false, false
 	return s
 }
 

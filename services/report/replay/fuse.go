@@ -16,10 +16,10 @@ import (
 // readout's canonical layout (as proto.Marshal writes it: the header
 // fields and the checksum, then one calorimeter payload holding the
 // towers packed, then the counts packed, each at most once; the order of
-// the fragment's own fields does not matter) the decoding goroutine reads
-// the two lists once, in step, feeding the checksum and keeping the
-// towers the selection will see as towerWords; the worker turns those
-// into GridTowers through the table as it concatenates an event's.
+// the fragment's own fields does not matter) the pass reads the two lists
+// once, in step, feeding the checksum and keeping the towers the
+// selection will see as towerWords; filling the event (fillSlots) turns
+// those into GridTowers through the table as it concatenates an event's.
 // A fragment with an empty muon payload takes the pass too. Anything
 // else (a muon payload with hits, unpacked or split lists, unknown
 // fields, a payload given twice, a count beyond 16 bits, bad encodings)
@@ -57,9 +57,10 @@ func newFuser(t *towerTable) *fuser {
 	return &fuser{table: t}
 }
 
-// decodeBatch is decodeBatch for the decoding goroutines: it also
-// appends to intact, per fragment, whether its checksum matches its
-// content. On error out and intact are returned unchanged.
+// decodeBatch is decodeBatch through the fuser (the lanes call
+// fuser.decodeFields per fragment instead): it also appends to intact,
+// per fragment, whether its checksum matches its content. On error out
+// and intact are returned unchanged.
 func (fz *fuser) decodeBatch(data []byte, pool *slotCache, out []*pb.Fragment, intact []bool) ([]*pb.Fragment, []bool, error) {
 	start := len(intact)
 	out, _, err := decodeBatchFunc(data, pool, out, func(b []byte, s *slot) error {
@@ -347,7 +348,7 @@ func packedSlow(b []byte, i int) (uint32, int) {
 // towerWord is a tower the selection sees: its global index on the
 // table in the low 16 bits, its nonzero ET in least counts in the high
 // 16. A quarter of the size of a GridTower, which matters more than the
-// table look-up it leaves to the workers: a slot's towers are written by
-// a decoding goroutine and read by a worker well after, from memory
-// rather than cache, so the replay's time goes with their bytes.
+// table look-up it leaves to filling the event: a slot's towers wait in
+// their lane until the builder emits their event, and the fewer bytes
+// they take the more of them stay in cache.
 type towerWord uint32

@@ -37,8 +37,13 @@ import (
 //   - the calling goroutine merges the lanes' decided events by their
 //     emission number and delivers them in order.
 //
-// So the outputs do not depend on the number of lanes, and the builder's
-// accounting is each lane's (they are checked to agree).
+// A crossing's key is its (orbit, bcid) counters, the builder's key by
+// default; a builder keying fragments by timestamp can put fragments of
+// other counters into an event, so in that mode every lane decodes every
+// fragment in full. So the outputs do not depend on the number of lanes,
+// and the builder's accounting is each lane's (checked to agree at the
+// end; the merge also fails, rather than waits, when the lanes' events
+// cannot be put in one order).
 
 // laneOf returns the lane of the crossing with the given key: a
 // multiplicative hash, so that filling schemes with a period of two or
@@ -52,11 +57,14 @@ func laneOf(key uint64, lanes int) int {
 
 // verdicts is what a lane tells the others about one job: per batch
 // whether it failed to decode and where its fragments' verdicts start,
-// and per fragment whether its checksum matches (meaningful for the
-// lane's own fragments only). It is not changed once sent.
+// per fragment whether its checksum matches (meaningful for the lane's
+// own fragments only), and how the job ended, which every lane must have
+// read alike. It is not changed once sent.
 type verdicts struct {
 	batches []jobBatch
 	intact  []bool
+	eof     bool   // the job was the last of an intact stream
+	err     string // the damage that ended the job, or empty
 }
 
 // laneChunks is the number of chunks each lane has in flight: enough for
@@ -68,20 +76,28 @@ const laneChunks = 16
 // lane replays its share of a stream; see above. It is used by one
 // goroutine.
 type lane struct {
-	k, n    int
-	p       *plan
-	ctx     context.Context
-	r       *recording.Reader
-	size    int64
-	pool    *fragmentPool
-	cache   *slotCache
-	fz      *fuser
-	w       *worker
-	b       *builder.Builder
-	truth   truthStore
-	arrival int64
-	seq     uint64 // events emitted by the builder so far
-	reading *readJob
+	k, n   int
+	p      *plan
+	cancel context.CancelFunc // the run's
+	// headersOnly lets the lane keep only the header of other lanes'
+	// fragments: true when the builder keys fragments by their counters,
+	// as laneOf does, so that every fragment of an event is its owner's.
+	// By timestamp an event can hold fragments of other counters, and
+	// every lane decodes everything.
+	headersOnly bool
+	failed      error // an event held a fragment its lane had not decoded
+	ctx         context.Context
+	r           *recording.Reader
+	size        int64
+	pool        *fragmentPool
+	cache       *slotCache
+	fz          *fuser
+	w           *worker
+	b           *builder.Builder
+	truth       truthStore
+	arrival     int64
+	seq         uint64 // events emitted by the builder so far
+	reading     *readJob
 
 	to, from []chan *verdicts // per other lane; nil at k
 	results  chan<- *chunk
@@ -107,8 +123,13 @@ const laneAhead = 3
 // run replays the whole stream. A lane builds its oldest job once the
 // other lanes' verdicts on it are in; until then, it reads on, up to
 // laneAhead jobs, rather than wait.
-func (l *lane) run() error {
+func (l *lane) run() (err error) {
 	defer func() {
+		// A lane that fails stops the others first, so that they see the
+		// cancellation rather than its channels closing.
+		if err != nil {
+			l.cancel()
+		}
 		for _, ch := range l.to {
 			if ch != nil {
 				close(ch)
@@ -149,12 +170,15 @@ func (l *lane) run() error {
 		if err := l.feed(j); err != nil {
 			return err
 		}
+		if l.failed != nil {
+			return l.failed
+		}
 		pending = pending[1:]
 		free = append(free, j)
 	}
 	l.b.Flush()
 	l.ship()
-	return nil
+	return l.failed
 }
 
 // read fills j with the next batches of the stream, decoded (the lane's
@@ -195,15 +219,16 @@ func (l *lane) read(j *readJob) {
 // its crossing belongs to, and, for the lane's own fragments, whether its
 // checksum matches. Of the other lanes' fragments in the canonical layout
 // it keeps the header fields and the checksum only (canonicalFields reads
-// what decodeFragment would); anything else is decoded in full, by every
+// what decodeFragment would), when the builder keys fragments by their
+// counters, as the lanes do; anything else is decoded in full, by every
 // lane alike.
 func (l *lane) decodeFragment(data []byte, s *slot) (owner int, intact bool, err error) {
 	var hdr [10]uint64
 	payload, num, canonical := canonicalFields(data, &hdr)
-	if canonical && l.n > 1 {
+	if canonical && l.n > 1 && l.headersOnly {
 		if o := laneOf(crossingKey(hdr[3], uint32(hdr[4])), l.n); o != l.k {
 			setHeader(&s.f, &hdr)
-			s.fused, s.f.Payload = false, nil
+			s.fused, s.header, s.f.Payload = false, true, nil
 			return o, false, nil
 		}
 	}
@@ -218,20 +243,15 @@ func (l *lane) send(j *readJob) error {
 	if l.n == 1 {
 		return nil
 	}
-	v := &verdicts{batches: slices.Clone(j.batches), intact: slices.Clone(j.intact)}
+	v := &verdicts{batches: slices.Clone(j.batches), intact: slices.Clone(j.intact), eof: j.eof, err: errText(j.err)}
 	for _, ch := range l.to {
 		if ch == nil {
 			continue
 		}
-		select {
-		case ch <- v:
-			continue
-		default:
-		}
-		// About to wait: what is decided goes out first, or the merge
-		// could be waiting for it while the lane we wait for waits for
-		// the merge.
-		l.ship()
+		// The channels hold 2*laneAhead verdicts, and a lane cannot get
+		// further ahead of another than that (it reads job i only once it
+		// has built job i-laneAhead, with the other's verdicts on it), so
+		// this does not wait.
 		select {
 		case ch <- v:
 		case <-l.ctx.Done():
@@ -239,6 +259,13 @@ func (l *lane) send(j *readJob) error {
 		}
 	}
 	return nil
+}
+
+func errText(err error) string {
+	if err == nil {
+		return ""
+	}
+	return err.Error()
 }
 
 // receive collects into j.others the other lanes' verdicts on j, the
@@ -282,6 +309,11 @@ func (l *lane) receive(j *readJob, wait bool) (bool, error) {
 // its owner's checksum verdict, and the truth records in their place.
 func (l *lane) feed(j *readJob) error {
 	others := j.others
+	for o, v := range others {
+		if v != nil && (len(v.batches) != len(j.batches) || v.eof != j.eof || v.err != errText(j.err)) {
+			return fmt.Errorf("%w: lanes %d and %d read the stream differently", errLanesDisagree, l.k, o)
+		}
+	}
 	t := 0
 	for i := range j.batches {
 		for ; t < j.ntruth && j.truthAt[t] <= i; t++ {
@@ -375,6 +407,11 @@ func (l *lane) emit(be *builder.Event) {
 	e.seq, e.orbit, e.bcid, e.flags, e.missing = seq, be.Orbit, be.Bcid, be.Flags, len(be.Missing)
 	e.lumi = uint32(be.Orbit/l.p.lumiOrbits) + 1
 	e.slots = l.pool.slotsOf(e.slots[:0], be.Fragments)
+	for _, sl := range e.slots {
+		if sl.header && l.failed == nil {
+			l.failed = fmt.Errorf("%w: an event of lane %d holds a fragment it read the header of only", errLanesDisagree, l.k)
+		}
+	}
 	if e.truth = l.truth.take(key); e.truth != nil {
 		l.truthMatched++
 	}
@@ -413,6 +450,7 @@ func (l *lane) takeChunk() *chunk {
 func (l *lane) ship() {
 	if c := l.cur; c != nil && c.n > 0 {
 		l.cur = nil
+		c.upTo = l.seq
 		l.results <- c
 	}
 }
@@ -432,18 +470,19 @@ func (p *plan) runLanes(ctx context.Context, s *StreamSource, sink func(*Event) 
 	for k := range lanes {
 		r := s.r
 		if k > 0 {
+			// A clone reads the same bytes, the file as long as it was
+			// when the stream was opened, through the same open file.
 			var err error
-			if r, err = recording.Open(s.sample.Path); err != nil {
+			if r, err = s.r.Clone(); err != nil {
 				return sum, fmt.Errorf("replay: %w", err)
 			}
-			defer r.Close()
 		}
 		w, err := p.newWorker()
 		if err != nil {
 			return sum, err
 		}
 		pool := newFragmentPool()
-		l := &lane{k: k, n: n, p: p, ctx: ctx, r: r, size: s.size, pool: pool, cache: pool.cache(),
+		l := &lane{k: k, n: n, p: p, ctx: ctx, cancel: cancel, r: r, headersOnly: p.bc.Mode == builder.ByCounter, size: s.size, pool: pool, cache: pool.cache(),
 			fz: newFuser(p.table), w: w,
 			to: make([]chan *verdicts, n), from: make([]chan *verdicts, n),
 			results: results, free: make(chan *chunk, laneChunks)}
@@ -465,8 +504,8 @@ func (p *plan) runLanes(ctx context.Context, s *StreamSource, sink func(*Event) 
 		frac = f
 		fracMu.Unlock()
 	}
-	// Verdict channels hold a few jobs, so that a lane that runs ahead
-	// rarely waits.
+	// Verdict channels hold as many jobs as one lane can be ahead of
+	// another (see send).
 	for i := range lanes {
 		for j := range lanes {
 			if i != j {
@@ -492,10 +531,26 @@ func (p *plan) runLanes(ctx context.Context, s *StreamSource, sink func(*Event) 
 	queues := make([][]*chunk, n)
 	pos := make([]int, n)
 	var sinkErr error
+	// Every event is one lane's, and a lane's chunks come in the order it
+	// built them, stamped with the number of events it had built: an
+	// event at the head of two lanes, or one that no lane has although
+	// every lane has built past it, means the lanes' builders disagree.
+	var mergeErr error
+	stamps := make([]uint64, n)
+	fail := func(err error) bool {
+		mergeErr = err
+		cancel()
+		return false
+	}
 	next := func() bool {
 		for k, q := range queues {
 			if len(q) == 0 || q[0].events[pos[k]].seq != d.decided {
 				continue
+			}
+			for o, qo := range queues {
+				if o != k && len(qo) > 0 && qo[0].events[pos[o]].seq == d.decided {
+					return fail(fmt.Errorf("%w: lanes %d and %d both have event %d", errLanesDisagree, k, o, d.decided))
+				}
 			}
 			c := q[0]
 			if err := d.event(c, pos[k]); err != nil {
@@ -518,11 +573,15 @@ func (p *plan) runLanes(ctx context.Context, s *StreamSource, sink func(*Event) 
 		return false
 	}
 	for c := range results {
-		if sinkErr != nil {
+		if sinkErr != nil || mergeErr != nil {
 			continue
 		}
 		queues[c.lane] = append(queues[c.lane], c)
+		stamps[c.lane] = c.upTo
 		for next() {
+		}
+		if mergeErr == nil && sinkErr == nil && slices.Min(stamps) > d.decided {
+			fail(fmt.Errorf("%w: no lane has event %d", errLanesDisagree, d.decided))
 		}
 	}
 
@@ -535,8 +594,11 @@ func (p *plan) runLanes(ctx context.Context, s *StreamSource, sink func(*Event) 
 		sum.TruthMatched += l.truthMatched
 	}
 	sum.InputError = l0.inputErr
-	if sinkErr != nil {
+	switch {
+	case sinkErr != nil:
 		return sum, sinkErr
+	case mergeErr != nil:
+		return sum, mergeErr
 	}
 	for _, err := range errs {
 		if err != nil && !errors.Is(err, context.Canceled) {

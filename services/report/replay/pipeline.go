@@ -27,19 +27,20 @@ type Config struct {
 	Prescales [][]int
 	// Values are computed for every event from the first menu's features.
 	Values []Quantity
-	// Workers is the number of goroutines that decode towers and compute
-	// features, and of those that decode and checksum a stream's
-	// fragment batches; zero means 2.
+	// Workers is the number of lanes a stream replays on (each reads the
+	// stream and decides a share of its events), or, for a generator, the
+	// number of goroutines that decode towers and compute features; zero
+	// means 2.
 	Workers int
-	// ChunkEvents is the number of events handed to a worker at once;
-	// zero means 32.
+	// ChunkEvents is the number of events handed to a worker, or from a
+	// lane to the deciding goroutine, at once; zero means 32.
 	ChunkEvents int
 	// Builder overrides the event builder's settings; Run, Sources and
 	// SkipChecksum are always set from the source, and WhenFull is always
 	// EvictOldest (a replay has nobody to push back on). Zero fields keep
 	// the builder's defaults.
 	Builder builder.Config
-	// Progress, when set, is called from the deciding goroutine after each
+	// Progress, when set, is called from the calling goroutine after each
 	// chunk with the events decided so far and the share of the input
 	// read (0..1).
 	Progress func(events uint64, done float64)
@@ -69,9 +70,10 @@ type Summary struct {
 var ErrNoMenu = errors.New("replay: no menu to decide with")
 
 // Run replays src through the builder and the menus, calling sink for
-// every event in emission order from a single goroutine. It starts
-// Config.Workers worker goroutines and one feeding goroutine, and joins
-// them all before it returns. Runs with distinct sources may proceed
+// every event in emission order from the calling goroutine. It starts
+// Config.Workers lanes for a stream (lanes.go), or Config.Workers workers
+// and a feeding goroutine for a generator, and joins them all before it
+// returns. Runs with distinct sources may proceed
 // concurrently; a source serves one Run. A sink error
 // stops the run and is returned. Run is deterministic: the same source
 // and configuration give the same events and decisions, whatever
@@ -350,7 +352,8 @@ type chunkEvent struct {
 // chunk carries up to cap(events) events from the feeder through a
 // worker to the deciding goroutine.
 type chunk struct {
-	lane   int // the lane that made it (lanes)
+	lane   int    // the lane that made it (lanes)
+	upTo   uint64 // the events its lane had built when it shipped it (lanes)
 	n      int
 	events []chunkEvent
 	passed [][]bool // per menu, events x rules

@@ -55,9 +55,10 @@ type Source interface {
 func (*StreamSource) source()    {}
 func (*GeneratorSource) source() {}
 
-// StreamSource reads a recorded stream file (docs/stream-format.md). It
-// is used by one Run and is not safe for concurrent use; Close it
-// afterwards.
+// StreamSource reads a recorded stream file (docs/stream-format.md), as
+// long as the file was when opened: its lanes read it through clones of
+// one recording.Reader. It is used by one Run and is not safe for
+// concurrent use; Close it afterwards.
 type StreamSource struct {
 	r      *recording.Reader
 	sample Sample
