@@ -16,16 +16,18 @@ import (
 )
 
 var (
-	benchOnce sync.Once
-	benchPath string
+	benchOnce, readoutOnce sync.Once
+	benchPath, readoutPath string
 )
 
 // TestMain removes the benchmark stream, recorded outside any test's
 // temporary directory so that every benchmark can share it.
 func TestMain(m *testing.M) {
 	code := m.Run()
-	if benchPath != "" {
-		os.RemoveAll(filepath.Dir(benchPath))
+	for _, p := range []string{benchPath, readoutPath} {
+		if p != "" {
+			os.RemoveAll(filepath.Dir(p))
+		}
 	}
 	os.Exit(code)
 }
@@ -59,6 +61,39 @@ func benchStreamT(b testing.TB) string {
 	return benchPath
 }
 
+// readoutStream records, once per test binary, 20000 crossings of the
+// physics generator at pile-up 60 as the whole readout sends them: the 16
+// calorimeter sources and the 8 muon sources, in batches of 32 crossings.
+func readoutStream(b *testing.B) string {
+	readoutOnce.Do(func() {
+		d := detector.DefaultDescription()
+		part, err := detector.NewPartition(d.Geometry, 16)
+		if err != nil {
+			b.Fatal(err)
+		}
+		gen, err := detector.NewPhysicsGenerator(d, part, 42, detector.PhysicsConfig{Mu: 60})
+		if err != nil {
+			b.Fatal(err)
+		}
+		dir, err := os.MkdirTemp("", "replay-bench")
+		if err != nil {
+			b.Fatal(err)
+		}
+		p := recordReadout(b, gen, part, 20000, 32)
+		readoutPath = filepath.Join(dir, "mu60-readout.bss")
+		if err := os.Rename(p, readoutPath); err != nil {
+			b.Fatal(err)
+		}
+	})
+	return readoutPath
+}
+
+// BenchmarkReplayReadout is BenchmarkReplayStream over the stream the
+// whole readout sends (calorimeter and muon sources, as `bunchsieve
+// record` writes it): the replay's work in `bunchsieve replay` of the
+// starter menu, without the report.
+func BenchmarkReplayReadout(b *testing.B) { benchReplayPath(b, readoutStream(b), starterMenu(b)) }
+
 // BenchmarkReplayStream replays a recorded mu = 60 stream through the
 // builder and the starter menu, reading, decompressing, decoding and
 // checksumming included, and reports events per second.
@@ -69,8 +104,9 @@ func BenchmarkReplayStream(b *testing.B) { benchReplay(b, starterMenu(b)) }
 // menu without the report.
 func BenchmarkReplayStreamPhysics(b *testing.B) { benchReplay(b, physicsMenu(b)) }
 
-func benchReplay(b *testing.B, m *trigger.Menu) {
-	path := benchStream(b)
+func benchReplay(b *testing.B, m *trigger.Menu) { benchReplayPath(b, benchStream(b), m) }
+
+func benchReplayPath(b *testing.B, path string, m *trigger.Menu) {
 	info, _ := os.Stat(path)
 	b.SetBytes(info.Size())
 	b.ReportAllocs()
