@@ -17,18 +17,13 @@ import (
 // at the tower centres, as FillEvent gives it. It is immutable and safe
 // for concurrent use.
 type towerTable struct {
-	cells []towerCell // by global tower index
+	// cells holds each tower's GridTower with ET unset, by global index:
+	// filling an event copies it and sets ET, two 8-byte moves.
+	cells []trigger.GridTower
 	lsb   float64
 	// wide, for a geometry too large for GridTowers, holds the Towers by
 	// global index with ET unset; nil otherwise.
 	wide []trigger.Tower
-}
-
-// towerCell is the cell of one tower, 6 bytes, so that the table of a
-// whole calorimeter stays in cache beside the features' own tables.
-type towerCell struct {
-	ieta, iphi uint16
-	layer      uint8
 }
 
 func newTowerTable(g *detector.Geometry) *towerTable {
@@ -42,10 +37,10 @@ func newTowerTable(g *detector.Geometry) *towerTable {
 		}
 		return t
 	}
-	t.cells = make([]towerCell, g.Towers())
+	t.cells = make([]trigger.GridTower, g.Towers())
 	for i := range t.cells {
 		layer, ieta, iphi, _ := g.TowerCoords(i)
-		t.cells[i] = towerCell{ieta: uint16(ieta), iphi: uint16(iphi), layer: uint8(layer)}
+		t.cells[i] = trigger.GridTower{IEta: uint16(ieta), IPhi: uint16(iphi), Layer: uint8(layer)}
 	}
 	return t
 }
@@ -130,8 +125,9 @@ func (t *towerTable) gridOfWords(tws []towerWord, out []trigger.GridTower) int {
 	cells := t.cells
 	out = out[:len(tws)]
 	for i, w := range tws {
-		cell := cells[w&0xffff]
-		out[i] = trigger.GridTower{ET: float64(w>>16) * t.lsb, IEta: cell.ieta, IPhi: cell.iphi, Layer: cell.layer}
+		g := cells[w&0xffff]
+		g.ET = float64(w>>16) * t.lsb
+		out[i] = g
 	}
 	return len(tws)
 }
@@ -148,9 +144,10 @@ func (t *towerTable) gridOf(c *pb.CaloPayload, out []trigger.GridTower) int {
 		if counts[i] == 0 || int(idx) >= len(cells) {
 			continue
 		}
-		cell := cells[idx]
+		g := cells[idx]
 		// float64(counts) * least count, as Geometry.ET computes it.
-		out[j] = trigger.GridTower{ET: float64(counts[i]) * t.lsb, IEta: cell.ieta, IPhi: cell.iphi, Layer: cell.layer}
+		g.ET = float64(counts[i]) * t.lsb
+		out[j] = g
 		j++
 	}
 	return j
