@@ -110,8 +110,10 @@ type lane struct {
 	inputErr                   string
 }
 
-// errLanesDisagree reports a broken invariant of the lanes: it is never
-// the input's fault.
+// errLanesDisagree reports lanes that saw different input or built
+// different events: a broken invariant of the lanes, or a stream file
+// changed in place while it was replayed (appending to it is harmless:
+// every lane reads it as long as it was when opened).
 var errLanesDisagree = errors.New("replay: internal error: lanes disagree")
 
 // laneAhead is the number of jobs a lane reads before it must build the
