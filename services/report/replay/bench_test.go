@@ -34,38 +34,27 @@ func TestMain(m *testing.M) {
 
 // benchStream records, once per test binary, 20000 crossings of the
 // physics generator at pile-up 60 with the 16 calorimeter sources of the
-// built-in description.
-func benchStream(b *testing.B) string { return benchStreamT(b) }
-
-func benchStreamT(b testing.TB) string {
-	benchOnce.Do(func() {
-		d := detector.DefaultDescription()
-		part, err := detector.NewPartition(d.Geometry, 16)
-		if err != nil {
-			b.Fatal(err)
-		}
-		gen, err := detector.NewPhysicsGenerator(d, part, 42, detector.PhysicsConfig{Mu: 60})
-		if err != nil {
-			b.Fatal(err)
-		}
-		dir, err := os.MkdirTemp("", "replay-bench")
-		if err != nil {
-			b.Fatal(err)
-		}
-		p := recordStream(b, gen, part, 20000, true)
-		benchPath = filepath.Join(dir, "mu60.bss")
-		if err := os.Rename(p, benchPath); err != nil {
-			b.Fatal(err)
-		}
+// built-in description, and their truth.
+func benchStream(b *testing.B) string {
+	return benchRecording(b, &benchOnce, &benchPath, "mu60.bss", func(gen detector.Generator, part *detector.Partition) string {
+		return recordStream(b, gen, part, 20000, true)
 	})
-	return benchPath
 }
 
-// readoutStream records, once per test binary, 20000 crossings of the
-// physics generator at pile-up 60 as the whole readout sends them: the 16
-// calorimeter sources and the 8 muon sources, in batches of 32 crossings.
+// readoutStream records, once per test binary, the same crossings as the
+// whole readout sends them: the 16 calorimeter sources and the 8 muon
+// sources, in batches of 32 crossings.
 func readoutStream(b *testing.B) string {
-	readoutOnce.Do(func() {
+	return benchRecording(b, &readoutOnce, &readoutPath, "mu60-readout.bss", func(gen detector.Generator, part *detector.Partition) string {
+		return recordReadout(b, gen, part, 20000, 32)
+	})
+}
+
+// benchRecording records, once, the physics generator at pile-up 60
+// (seed 42, 16 calorimeter sources) with record into a directory of its
+// own, which TestMain removes, and returns the file's path.
+func benchRecording(b *testing.B, once *sync.Once, path *string, name string, record func(detector.Generator, *detector.Partition) string) string {
+	once.Do(func() {
 		d := detector.DefaultDescription()
 		part, err := detector.NewPartition(d.Geometry, 16)
 		if err != nil {
@@ -79,13 +68,12 @@ func readoutStream(b *testing.B) string {
 		if err != nil {
 			b.Fatal(err)
 		}
-		p := recordReadout(b, gen, part, 20000, 32)
-		readoutPath = filepath.Join(dir, "mu60-readout.bss")
-		if err := os.Rename(p, readoutPath); err != nil {
+		*path = filepath.Join(dir, name)
+		if err := os.Rename(record(gen, part), *path); err != nil {
 			b.Fatal(err)
 		}
 	})
-	return readoutPath
+	return *path
 }
 
 // BenchmarkReplayReadout is BenchmarkReplayStream over the stream the
