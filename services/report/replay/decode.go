@@ -28,7 +28,7 @@ type slot struct {
 	muonP pb.MuonPayload
 	hits  []pb.MuonHit
 	// fused is set when the fragment was decoded in one pass
-	// (fuser.fuse: a calorimeter payload, or an empty muon one): f then
+	// (fuser.fuseFields: a calorimeter payload, or an empty muon one): f then
 	// has a nil Payload, and towers holds the towers fill makes of it.
 	fused  bool
 	towers []towerWord
@@ -72,7 +72,7 @@ func (p *fragmentPool) grow() {
 		s.calo.Calo = &s.caloP
 		s.muon.Muon = &s.muonP
 		// No room for towers up front: a stream's calorimeter slots fill
-		// towers (fuser.fuse) and leave the arrays empty; each slot's
+		// towers (fuser.fuseFields) and leave the arrays empty; each slot's
 		// storage grows to what it is given.
 		p.index[&s.f] = s
 		p.free = append(p.free, s)
@@ -155,26 +155,21 @@ func (c *slotCache) get() *slot {
 // put returns f, taken through c, to the pool.
 func (c *slotCache) put(f *pb.Fragment) { c.pool.put(f) }
 
-// batchInfo is what decodeBatch reads besides the fragments.
+// batchInfo is what decodeBatchFunc reads besides the fragments.
 type batchInfo struct {
 	source   uint32
 	run      uint32
 	endOfRun bool
 }
 
-// decodeBatch decodes a FragmentBatch protobuf (proto/bunchsieve/v1/
-// fragment.proto) into fragments from the pool, appended to out. It reads
-// what proto.Unmarshal reads, skips unknown fields and fields of an
-// unexpected wire type (as protobuf decoders do), and lets a later
-// occurrence of a scalar field win; it differs only in dropping unknown
-// fields instead of keeping them. On error the fragments taken so far are
-// returned to the pool and out is returned unchanged.
-func decodeBatch(data []byte, pool *slotCache, out []*pb.Fragment) ([]*pb.Fragment, batchInfo, error) {
-	return decodeBatchFunc(data, pool, out, decodeFragment)
-}
-
-// decodeBatchFunc is decodeBatch with each Fragment message decoded into
-// its slot by decode.
+// decodeBatchFunc decodes a FragmentBatch protobuf (proto/bunchsieve/v1/
+// fragment.proto) into fragments from the pool, appended to out, each
+// Fragment message decoded into its slot by decode. It reads what
+// proto.Unmarshal reads, skips unknown fields and fields of an unexpected
+// wire type (as protobuf decoders do), and lets a later occurrence of a
+// scalar field win; it differs only in dropping unknown fields instead of
+// keeping them. On error the fragments taken so far are returned to the
+// pool and out is returned unchanged.
 func decodeBatchFunc(data []byte, pool *slotCache, out []*pb.Fragment, decode func([]byte, *slot) error) ([]*pb.Fragment, batchInfo, error) {
 	var info batchInfo
 	start := len(out)

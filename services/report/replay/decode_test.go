@@ -134,3 +134,9 @@ func FuzzDecodeBatch(f *testing.F) {
 		equalFragments(t, out, &want)
 	})
 }
+
+// decodeBatch is decodeBatchFunc through decodeFragment: the reference
+// path the one-pass decoding is checked against.
+func decodeBatch(data []byte, pool *slotCache, out []*pb.Fragment) ([]*pb.Fragment, batchInfo, error) {
+	return decodeBatchFunc(data, pool, out, decodeFragment)
+}

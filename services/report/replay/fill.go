@@ -68,7 +68,7 @@ func (t *towerTable) fill(fragments []*pb.Fragment, lumiSlice uint32, ev *trigge
 }
 
 // fillSlots is fill for the fragments of slots; the towers of fused
-// slots (fuser.fuse), already checked against the table, only have their
+// slots (fuser.fuseFields), already checked against the table, only have their
 // cells looked up. t must be the grid table the slots were fused with.
 func (t *towerTable) fillSlots(slots []*slot, lumiSlice uint32, ev *trigger.Event) {
 	ev.LumiSlice = lumiSlice

@@ -57,33 +57,10 @@ func newFuser(t *towerTable) *fuser {
 	return &fuser{table: t}
 }
 
-// decodeBatch is decodeBatch through the fuser (the lanes call
-// fuser.decodeFields per fragment instead): it also appends to intact,
-// per fragment, whether its checksum matches its content. On error out
-// and intact are returned unchanged.
-func (fz *fuser) decodeBatch(data []byte, pool *slotCache, out []*pb.Fragment, intact []bool) ([]*pb.Fragment, []bool, error) {
-	start := len(intact)
-	out, _, err := decodeBatchFunc(data, pool, out, func(b []byte, s *slot) error {
-		ok, err := fz.decode(b, s)
-		intact = append(intact, ok)
-		return err
-	})
-	if err != nil {
-		intact = intact[:start]
-	}
-	return out, intact, err
-}
-
-// decode decodes one Fragment message into s and reports whether its
-// checksum matches its content.
-func (fz *fuser) decode(data []byte, s *slot) (intact bool, err error) {
-	var hdr [10]uint64
-	payload, num, ok := canonicalFields(data, &hdr)
-	return fz.decodeFields(data, ok, &hdr, payload, num, s)
-}
-
-// decodeFields is decode for a message canonicalFields has read, with
-// its outcome.
+// decodeFields decodes one Fragment message, which canonicalFields has
+// read with the given outcome, into s and reports whether its checksum
+// matches its content: through fuseFields where the layout allows, else
+// through decodeFragment and Checksummer.Sum.
 func (fz *fuser) decodeFields(data []byte, canonical bool, hdr *[10]uint64, payload []byte, num byte, s *slot) (intact bool, err error) {
 	if canonical {
 		if sum, ok := fz.fuseFields(hdr, payload, num, s); ok {
@@ -97,23 +74,13 @@ func (fz *fuser) decodeFields(data []byte, canonical bool, hdr *[10]uint64, payl
 	return fz.sum.Sum(&s.f) == s.f.Checksum, nil
 }
 
-// fuse decodes a calorimeter fragment in the canonical layout, or a
-// fragment with an empty muon payload, into s in one pass and returns
-// the CRC-32C of its canonical content, the value Checksummer.Sum gives.
-// On success s.f holds the header fields and the checksum, with a nil
-// Payload, and s.towers the towers towerTable.fill makes of its payload.
-// It reports false, with s in an unspecified state, for any other
-// layout.
-func (fz *fuser) fuse(data []byte, s *slot) (uint32, bool) {
-	var hdr [10]uint64
-	payload, num, ok := canonicalFields(data, &hdr)
-	if !ok {
-		return 0, false
-	}
-	return fz.fuseFields(&hdr, payload, num, s)
-}
-
-// fuseFields is fuse for a message canonicalFields has read.
+// fuseFields decodes a calorimeter fragment in the canonical layout, or
+// a fragment with an empty muon payload, that canonicalFields has read
+// into hdr and payload, into s in one pass and returns the CRC-32C of its
+// canonical content, the value Checksummer.Sum gives. On success s.f
+// holds the header fields and the checksum, with a nil Payload, and
+// s.towers the towers towerTable.fill makes of its payload. It reports
+// false, with s in an unspecified state, for any other layout.
 func (fz *fuser) fuseFields(hdr *[10]uint64, payload []byte, num byte, s *slot) (uint32, bool) {
 	if fz.table == nil || num == 8 && len(payload) > 0 {
 		// A muon payload with hits takes the general path.

@@ -452,3 +452,39 @@ func TestFuseTableIsCRC32C(t *testing.T) {
 		t.Fatalf("check value %#x, want 0xe3069283", got)
 	}
 }
+
+// decodeBatch is decodeBatch through the fuser, as a lane decodes its
+// own fragments: it also appends to intact,
+// per fragment, whether its checksum matches its content. On error out
+// and intact are returned unchanged.
+func (fz *fuser) decodeBatch(data []byte, pool *slotCache, out []*pb.Fragment, intact []bool) ([]*pb.Fragment, []bool, error) {
+	start := len(intact)
+	out, _, err := decodeBatchFunc(data, pool, out, func(b []byte, s *slot) error {
+		ok, err := fz.decode(b, s)
+		intact = append(intact, ok)
+		return err
+	})
+	if err != nil {
+		intact = intact[:start]
+	}
+	return out, intact, err
+}
+
+// decode decodes one Fragment message into s and reports whether its
+// checksum matches its content.
+func (fz *fuser) decode(data []byte, s *slot) (intact bool, err error) {
+	var hdr [10]uint64
+	payload, num, ok := canonicalFields(data, &hdr)
+	return fz.decodeFields(data, ok, &hdr, payload, num, s)
+}
+
+// fuse is fuseFields for a whole Fragment message; false for a message
+// canonicalFields refuses.
+func (fz *fuser) fuse(data []byte, s *slot) (uint32, bool) {
+	var hdr [10]uint64
+	payload, num, ok := canonicalFields(data, &hdr)
+	if !ok {
+		return 0, false
+	}
+	return fz.fuseFields(&hdr, payload, num, s)
+}

@@ -148,11 +148,6 @@ func newPlan(sample Sample, cfg Config) (*plan, error) {
 	if p.lumiOrbits == 0 {
 		p.lumiOrbits = 1 << 18
 	}
-	// The menus compile here once, so that a bad menu fails before any
-	// goroutine starts.
-	if _, err := p.newWorker(); err != nil {
-		return nil, err
-	}
 	return p, nil
 }
 
