@@ -8,6 +8,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"github.com/bunchsieve/bunchsieve/detector"
 )
 
 // benchEvents returns events of 300 to 1000 towers, made before the timed
@@ -192,23 +194,28 @@ func physicsSelector(b *testing.B) *Selector {
 // feature computed (anti-kt R = 0.4 and R = 1.0 jets, window jets, EM
 // clusters, muon candidates, narrow clusters), on one goroutine.
 //
-// The towers come in both forms: "grid", as GridTowers, the form the
-// selection service and the replay fill from the readout's payloads, and
-// "towers", as Tower structs.
+// The towers come in three forms: "grid", as GridTowers, the form the
+// selection service fills from the readout's payloads, "counted", as
+// CountTowers, the form the replay fills, and "towers", as Tower structs.
 func BenchmarkPhysicsMenu(b *testing.B) {
 	s := physicsSelector(b)
 	g := lanternGrid()
+	lsb := detector.DefaultDescription().Geometry.LeastCountGeV
 	for _, set := range physicsBenchSets(b) {
 		grid := make([]*Event, len(set.evs))
+		counted := make([]*Event, len(set.evs))
 		for i, ev := range set.evs {
 			if grid[i] = toGridTowers(ev, g); len(grid[i].Towers) != 0 {
 				b.Fatalf("%s event %d: %d towers off their cell centres", set.name, i, len(grid[i].Towers))
+			}
+			if counted[i] = toCountTowers(ev, g, lsb); len(counted[i].Towers) != 0 {
+				b.Fatalf("%s event %d: %d towers not in least counts", set.name, i, len(counted[i].Towers))
 			}
 		}
 		for _, form := range []struct {
 			name string
 			evs  []*Event
-		}{{"grid", grid}, {"towers", set.evs}} {
+		}{{"grid", grid}, {"counted", counted}, {"towers", set.evs}} {
 			b.Run(set.name+"/"+form.name, func(b *testing.B) {
 				var d Decision
 				b.ReportAllocs()
@@ -270,9 +277,10 @@ func measureEvents(b *testing.B, step func(i int)) (int, time.Duration, time.Dur
 func BenchmarkTowerSelection(b *testing.B) {
 	evs, _ := physicsEvents(b, 64, 60, "", 11)
 	g := lanternGrid()
-	grid := make([]*Event, len(evs))
+	grid, counted := make([]*Event, len(evs)), make([]*Event, len(evs))
+	lsb := detector.DefaultDescription().Geometry.LeastCountGeV
 	for i, ev := range evs {
-		grid[i] = toGridTowers(ev, g)
+		grid[i], counted[i] = toGridTowers(ev, g), toCountTowers(ev, g, lsb)
 	}
 	em, _ := NewEMClusterFinder(EMClusterConfig{Seed: 1e6})
 	for _, c := range []struct {
@@ -282,7 +290,7 @@ func BenchmarkTowerSelection(b *testing.B) {
 		for _, form := range []struct {
 			name string
 			evs  []*Event
-		}{{"grid", grid}, {"towers", evs}} {
+		}{{"grid", grid}, {"counted", counted}, {"towers", evs}} {
 			b.Run(c.name+"/"+form.name, func(b *testing.B) {
 				cfg := FeatureConfig{Grid: g, NoiseCut: 0.5, EtaMax: 4, Collections: c.colls}
 				var f Features

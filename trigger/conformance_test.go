@@ -64,6 +64,16 @@ func checkAlgorithm(t *testing.T, alg Algorithm, g Grid) {
 			t.Fatalf("event %d as grid towers: %v, as towers %v", i, got, want[i])
 		}
 	}
+	// The same events with readout E_T (whole least counts of 0.25 GeV)
+	// give the same objects as Towers and as CountTowers, the form the
+	// replay fills.
+	for i, ev := range events {
+		q := quantized(ev, 0.25)
+		var fa, fb Features
+		if got, want := run(&fb, toCountTowers(q, g, 0.25)), run(&fa, q); !slices.Equal(got, want) {
+			t.Fatalf("event %d as count towers: %v, as towers %v", i, got, want)
+		}
+	}
 	// A reused Features, the same Output run twice, and the Input left as
 	// it was given.
 	var f Features

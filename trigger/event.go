@@ -116,27 +116,60 @@ type GridTower struct {
 	Layer      uint8
 }
 
+// CountTowers are towers in the form a readout sends them, 4 bytes
+// each: a word holds an index into a table of cells in its low 16 bits
+// and the tower's E_T in least counts in its high 16. Word w stands for
+// the GridTower
+//
+//	t := Cells[w&0xffff]; t.ET = float64(w>>16) * GeVPerCount
+//
+// (the ET of the Cells entries is not used), so the features of an event
+// are the same whether its towers come as CountTowers or as those
+// GridTowers (TestCountTowersMatchGridTowers). A word whose index lies
+// outside Cells stands for a tower with a NaN E_T: it is ignored and
+// counted in Features.Bad. The form saves a service that decodes the
+// readout's payloads itself from writing 16 bytes per tower to hand the
+// selection what it read as 4.
+type CountTowers struct {
+	Words       []uint32
+	Cells       []GridTower
+	GeVPerCount float64
+}
+
 // Event is what the selection sees of one bunch crossing: the calorimeter
 // towers, the muon-station hits and the lumi slice the crossing belongs
-// to. The towers are Towers followed by GridTowers, in that order; either
-// may be empty.
+// to. The towers are Towers, then GridTowers, then the words of Counted,
+// in that order; any may be empty.
 type Event struct {
 	Towers     []Tower
 	GridTowers []GridTower
+	Counted    CountTowers
 	MuonHits   []MuonHit
 	LumiSlice  uint32
 }
 
-// NumTowers returns the number of towers of both forms.
-func (ev *Event) NumTowers() int { return len(ev.Towers) + len(ev.GridTowers) }
+// NumTowers returns the number of towers of all forms.
+func (ev *Event) NumTowers() int {
+	return len(ev.Towers) + len(ev.GridTowers) + len(ev.Counted.Words)
+}
 
-// TowerAt returns tower i of the event, counting Towers first and then
-// GridTowers, as a Tower with the direction of grid g. It panics if i is
-// out of range.
+// TowerAt returns tower i of the event, counting Towers first, then
+// GridTowers, then the words of Counted, as a Tower with the direction of
+// grid g. It panics if i is out of range.
 func (ev *Event) TowerAt(i int, g Grid) Tower {
 	if i < len(ev.Towers) {
 		return ev.Towers[i]
 	}
-	t := &ev.GridTowers[i-len(ev.Towers)]
+	i -= len(ev.Towers)
+	if i >= len(ev.GridTowers) {
+		c := &ev.Counted
+		w := c.Words[i-len(ev.GridTowers)]
+		if int(w&0xffff) >= len(c.Cells) {
+			return Tower{ET: math.NaN()}
+		}
+		t := c.Cells[w&0xffff]
+		return Tower{Layer: t.Layer, IEta: int(t.IEta), IPhi: int(t.IPhi), Eta: g.EtaCentre(int(t.IEta)), Phi: g.PhiCentre(int(t.IPhi)), ET: float64(w>>16) * c.GeVPerCount}
+	}
+	t := &ev.GridTowers[i]
 	return Tower{Layer: t.Layer, IEta: int(t.IEta), IPhi: int(t.IPhi), Eta: g.EtaCentre(int(t.IEta)), Phi: g.PhiCentre(int(t.IPhi)), ET: t.ET}
 }

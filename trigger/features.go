@@ -392,6 +392,73 @@ func computeFeatures(ev *Event, cfg *FeatureConfig, f *Features) {
 			}
 		}
 	}
+	// The words of CountTowers: the GridTower steps above, written out
+	// once more for the same reason, with each tower's cell looked up in
+	// the event's table and its E_T made from its counts;
+	// TestCountTowersEdgeCases holds this copy to the others.
+	if ct := &ev.Counted; len(ct.Words) > 0 {
+		rowOK := f.etaRows(g, cells > 0, etaMin, etaMax)
+		words, table, lsb := ct.Words, ct.Cells, ct.GeVPerCount
+		selected = slices.Grow(selected[:nsel], len(words))[:nsel+len(words)]
+		base := int32(len(towers) + len(ev.GridTowers))
+		for k, w := range words {
+			idx := uint(w & 0xffff)
+			if idx >= uint(len(table)) {
+				bad++
+				continue
+			}
+			t := &table[idx]
+			et := float64(w>>16) * lsb
+			ieta, iphi := uint(t.IEta), uint(t.IPhi)
+			if ieta >= neta || iphi >= nphi {
+				eta, phi := g.EtaCentre(int(ieta)), g.PhiCentre(int(iphi))
+				if a := math.Abs(eta); !(et >= lo && et <= math.MaxFloat64 && a >= etaMin && a <= etaMax) || !finite(phi) {
+					if !finite(et) || !finite(eta) || !finite(phi) {
+						bad++
+					}
+					continue
+				}
+				sin, cos := math.Sincos(phi)
+				sx += et * cos
+				sy += et * sin
+				sum += et
+				selected[nsel] = base + int32(k)
+				nsel++
+				offGrid++
+				continue
+			}
+			if !(et >= lo && et <= math.MaxFloat64) || !rowOK[ieta] {
+				if !finite(et) {
+					bad++
+				}
+				continue
+			}
+			pc := &phiTab[iphi]
+			sx += et * pc.cos
+			sy += et * pc.sin
+			sum += et
+			selected[nsel] = base + int32(k)
+			nsel++
+			if et == 0 {
+				continue
+			}
+			c := ieta*nphi + iphi
+			old := cellsV[c]
+			touched[ntouch] = int32(c)
+			if old == 0 {
+				ntouch++
+			}
+			nv := old + et
+			cellsV[c] = nv
+			hot[nhot] = int32(c)
+			if nv >= hotCut && (old < hotCut || old == 0) {
+				nhot++
+			}
+			if layers && t.Layer == 0 {
+				em[c] += et
+			}
+		}
+	}
 	selected, touched, hot = selected[:nsel], touched[:ntouch], hot[:nhot]
 	used := nsel
 	in.Selected, in.Touched, in.Hot = selected, touched, hot

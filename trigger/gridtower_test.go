@@ -163,23 +163,26 @@ func TestEveryCellTouched(t *testing.T) {
 	g := Grid{EtaBins: 3, PhiBins: 3, EtaMin: -0.15, EtaStep: 0.1}
 	em, _ := NewEMClusterFinder(EMClusterConfig{Seed: 0.5})
 	cfg := FeatureConfig{Grid: g, Collections: []CollectionConfig{{Name: "ems", Algorithm: em}}}
-	for _, grid := range []bool{false, true} {
+	for _, form := range []string{"towers", "grid towers", "count towers"} {
 		ev := &Event{}
 		for round := range 2 {
 			for c := range g.Cells() {
-				tw := cellTower(g, uint8(round), c/3, c%3, 1)
-				if grid {
+				switch form {
+				case "grid towers":
 					ev.GridTowers = append(ev.GridTowers, GridTower{ET: 1, IEta: uint16(c / 3), IPhi: uint16(c % 3), Layer: uint8(round)})
-				} else {
-					ev.Towers = append(ev.Towers, tw)
+				default:
+					ev.Towers = append(ev.Towers, cellTower(g, uint8(round), c/3, c%3, 1))
 				}
 			}
+		}
+		if form == "count towers" {
+			ev = toCountTowers(ev, g, 0.25)
 		}
 		var f Features
 		computeFeatures(ev, &cfg, &f)
 		// 9 cells of 1 + 1 GeV: sum ET 18 GeV, each cell listed once.
-		if f.SumET != 18 || len(f.in.Touched) != 9 || len(f.in.Hot) != 9 {
-			t.Fatalf("grid towers %v: sum ET %v, %d touched, %d hot", grid, f.SumET, len(f.in.Touched), len(f.in.Hot))
+		if f.SumET != 18 || len(f.in.Touched) != 9 || len(f.in.Hot) != 9 || ev.NumTowers() != 18 {
+			t.Fatalf("%s: sum ET %v, %d touched, %d hot, %d towers", form, f.SumET, len(f.in.Touched), len(f.in.Hot), ev.NumTowers())
 		}
 	}
 }

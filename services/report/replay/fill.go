@@ -2,6 +2,7 @@ package replay
 
 import (
 	"math"
+	"slices"
 
 	"github.com/bunchsieve/bunchsieve/detector"
 	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
@@ -49,6 +50,7 @@ func newTowerTable(g *detector.Geometry) *towerTable {
 func (t *towerTable) fill(fragments []*pb.Fragment, lumiSlice uint32, ev *trigger.Event) {
 	ev.LumiSlice = lumiSlice
 	ev.Towers, ev.GridTowers, ev.MuonHits = ev.Towers[:0], ev.GridTowers[:0], ev.MuonHits[:0]
+	ev.Counted.Words = ev.Counted.Words[:0]
 	total := 0
 	for _, f := range fragments {
 		total += t.countPayload(f, ev)
@@ -67,19 +69,37 @@ func (t *towerTable) fill(fragments []*pb.Fragment, lumiSlice uint32, ev *trigge
 	ev.GridTowers = out[:j]
 }
 
-// fillSlots is fill for the fragments of slots; the towers of fused
-// slots (fuser.fuseFields), already checked against the table, only have their
-// cells looked up. t must be the grid table the slots were fused with.
+// fillSlots is fill for the fragments of slots. The towers of fused
+// slots (fuser.fuseFields), already checked against the table, are handed
+// over as they are, as the words of trigger.CountTowers on the table's
+// cells, when no other slot has towers; else every slot's towers become
+// GridTowers, in slot order either way, so the features do not depend on
+// the form. t must be the grid table the slots were fused with.
 func (t *towerTable) fillSlots(slots []*slot, lumiSlice uint32, ev *trigger.Event) {
 	ev.LumiSlice = lumiSlice
 	ev.Towers, ev.GridTowers, ev.MuonHits = ev.Towers[:0], ev.GridTowers[:0], ev.MuonHits[:0]
+	ev.Counted.Words = ev.Counted.Words[:0]
 	total := 0
+	counted := true
 	for _, s := range slots {
 		if s.fused {
 			total += len(s.towers)
 			continue
 		}
+		if s.f.GetCalo() != nil {
+			counted = false
+		}
 		total += t.countPayload(&s.f, ev)
+	}
+	if counted {
+		words := slices.Grow(ev.Counted.Words, total)
+		for _, s := range slots {
+			if s.fused {
+				words = append(words, s.towers...)
+			}
+		}
+		ev.Counted = trigger.CountTowers{Words: words, Cells: t.cells, GeVPerCount: t.lsb}
+		return
 	}
 	out := growTowers(ev.GridTowers, total)
 	j := 0

@@ -18,8 +18,8 @@ import (
 // towers packed, then the counts packed, each at most once; the order of
 // the fragment's own fields does not matter) the pass reads the two lists
 // once, in step, feeding the checksum and keeping the towers the
-// selection will see as towerWords; filling the event (fillSlots) turns
-// those into GridTowers through the table as it concatenates an event's.
+// selection will see as towerWords; filling the event (fillSlots)
+// concatenates an event's into the words of trigger.CountTowers.
 // A fragment with an empty muon payload takes the pass too. Anything
 // else (a muon payload with hits, unpacked or split lists, unknown
 // fields, a payload given twice, a count beyond 16 bits, bad encodings)
@@ -325,8 +325,8 @@ func packedSlow(b []byte, i int) (uint32, int) {
 
 // towerWord is a tower the selection sees: its global index on the
 // table in the low 16 bits, its nonzero ET in least counts in the high
-// 16. A quarter of the size of a GridTower, which matters more than the
-// table look-up it leaves to filling the event: a slot's towers wait in
-// their lane until the builder emits their event, and the fewer bytes
-// they take the more of them stay in cache.
-type towerWord uint32
+// 16, a word of trigger.CountTowers. A quarter of the size of a
+// GridTower: a slot's towers wait in their lane until the builder emits
+// their event, and the fewer bytes they take the more of them stay in
+// cache; and the selection reads them as they are.
+type towerWord = uint32
