@@ -47,7 +47,7 @@ func runReplay(ctx context.Context, e *env, args []string) error {
 	fs.Var(&effs, "efficiency", "turn-on curve, `RULE:REF[=FROM:TO:STEP]`; REF is "+strings.Join(rpt.References(), ", ")+" or a feature such as met, ht, jets[0].et (repeatable)")
 	scale := fs.String("scale-lumi", "", "also give the rates scaled linearly from luminosity `FROM:TO` (cm^-2 s^-1), e.g. 2e34:5e34")
 	cl := fs.Float64("cl", 0.95, "confidence level of the efficiency intervals")
-	workers := fs.Int("workers", 2, "goroutines decoding fragments and computing features (the output does not depend on it)")
+	workers := fs.Int("workers", 0, "lanes reading and building a --stream (0: one fewer than the processors, at least one), or goroutines computing features for --generate (0: 2); the output does not depend on it")
 	noProgress := fs.Bool("no-progress", false, "draw no progress bar even on a terminal")
 	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the replay and the report to `FILE`")
 	traceFile := fs.String("trace", "", "write an execution trace (go tool trace) of the replay and the report to `FILE`")
@@ -223,8 +223,8 @@ func replayOptions(given map[string]bool, menuPath, set, compare, compareSet str
 		return opts, usagef("--cl %v: want a confidence level between 0 and 1, such as 0.95", cl)
 	}
 	opts.ConfidenceLevel = cl
-	if workers < 1 || workers > 64 {
-		return opts, usagef("--workers %d: want 1..64", workers)
+	if workers < 0 || workers > 64 {
+		return opts, usagef("--workers %d: want 1..64, or 0 for the default", workers)
 	}
 	opts.Workers = workers
 	return opts, nil

@@ -32,7 +32,8 @@ type Options struct {
 	// ConfidenceLevel of the efficiency intervals; zero means 0.95.
 	ConfidenceLevel float64
 	// Workers is the number of lanes a stream replays on, or of feature
-	// workers for a generator (replay.Config.Workers); zero means 2.
+	// workers for a generator (replay.Config.Workers); zero means its
+	// default.
 	Workers int
 	// RootFile, when set, is the ROOT file written during the run: a tree
 	// with one entry per event, and the histograms of the scans and

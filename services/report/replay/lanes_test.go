@@ -121,6 +121,9 @@ func rewriteFragments(t *testing.T, path string, edit func(batch, k int, f *pb.F
 // fragments in full, so the lanes must pass each other the checksum
 // verdicts and the failed batch for their builders to agree; the
 // accounting must equal the sequential builder's as well as the events.
+// And whoever decides an event, its lane or the calling goroutine, it is
+// decided alike: lanes that leave every event, none, or as many as the
+// calling goroutine keeps up with.
 func TestLanesMatchSequentialOnAwkwardStream(t *testing.T) {
 	gen, part := simpleGenerator(t, 11)
 	path := recordStream(t, gen, part, 3000, false,
@@ -134,13 +137,16 @@ func TestLanesMatchSequentialOnAwkwardStream(t *testing.T) {
 	}
 	met, _ := ParseQuantity("met")
 	var one []decided
-	for _, c := range []struct{ lanes, chunk int }{{1, 32}, {2, 7}, {3, 1}, {5, 32}} {
+	for _, c := range []struct {
+		lanes, chunk int
+		mode         handOverMode
+	}{{1, 32, handOverAdaptive}, {1, 5, handOverAll}, {1, 32, handOverNone}, {2, 7, handOverAdaptive}, {2, 32, handOverAll}, {3, 1, handOverAdaptive}, {5, 32, handOverNone}} {
 		lanes := c.lanes
 		src, err := OpenStream(path)
 		if err != nil {
 			t.Fatal(err)
 		}
-		got, sum := collect(t, src, Config{Menus: []*trigger.Menu{m}, Workers: lanes, ChunkEvents: c.chunk, Values: []Quantity{met}})
+		got, sum := collect(t, src, Config{Menus: []*trigger.Menu{m}, Workers: lanes, ChunkEvents: c.chunk, Values: []Quantity{met}, handOver: c.mode})
 		src.Close()
 		if sum.Builder != wantStats || sum.Undecodable != uint64(wantBad) {
 			t.Errorf("%d lanes: accounting %+v, %d undecodable; sequential %+v, %d", lanes, sum.Builder, sum.Undecodable, wantStats, wantBad)

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"runtime"
 	"sync"
 
 	"github.com/bunchsieve/bunchsieve/builder"
@@ -28,9 +29,10 @@ type Config struct {
 	// Values are computed for every event from the first menu's features.
 	Values []Quantity
 	// Workers is the number of lanes a stream replays on (each reads the
-	// stream and decides a share of its events), or, for a generator, the
-	// number of goroutines that decode towers and compute features; zero
-	// means 2.
+	// stream and builds a share of its events; the calling goroutine
+	// decides what they leave it and delivers), zero meaning one fewer
+	// than GOMAXPROCS, at least one; or, for a generator, the number of
+	// goroutines that decode towers and compute features, zero meaning 2.
 	Workers int
 	// ChunkEvents is the number of events handed to a worker, or from a
 	// lane to the deciding goroutine, at once; zero means 32.
@@ -44,7 +46,20 @@ type Config struct {
 	// chunk with the events decided so far and the share of the input
 	// read (0..1).
 	Progress func(events uint64, done float64)
+
+	// handOver, for tests, overrides which events lanes leave to the
+	// calling goroutine to decide.
+	handOver handOverMode
 }
+
+// handOverMode says which events a lane leaves undecided.
+type handOverMode uint8
+
+const (
+	handOverAdaptive handOverMode = iota // while the deciding goroutine keeps up (lane.handOver)
+	handOverNone
+	handOverAll
+)
 
 // Summary is the accounting of a Run.
 type Summary struct {
@@ -79,6 +94,11 @@ var ErrNoMenu = errors.New("replay: no menu to decide with")
 // and configuration give the same events and decisions, whatever
 // Workers.
 func Run(ctx context.Context, src Source, cfg Config, sink func(*Event) error) (Summary, error) {
+	if _, stream := src.(*StreamSource); stream && cfg.Workers <= 0 {
+		// The calling goroutine decides and writes the report on a
+		// processor of its own.
+		cfg.Workers = max(1, runtime.GOMAXPROCS(0)-1)
+	}
 	p, err := newPlan(src.Sample(), cfg)
 	if err != nil {
 		return Summary{}, err
@@ -185,11 +205,14 @@ type delivery struct {
 	deciders []*decider
 	ev       Event
 	decided  uint64
+	// w decides the events that come undecided (lanes.go); nil where
+	// every event comes decided.
+	w *worker
 }
 
-func (p *plan) newDelivery(sink func(*Event) error) *delivery {
+func (p *plan) newDelivery(sink func(*Event) error, w *worker) *delivery {
 	n := len(p.cfg.Menus)
-	d := &delivery{p: p, sink: sink, ev: Event{Passed: make([][]bool, n), Kept: make([][]bool, n), Accept: make([]bool, n)}}
+	d := &delivery{p: p, sink: sink, w: w, ev: Event{Passed: make([][]bool, n), Kept: make([][]bool, n), Accept: make([]bool, n)}}
 	for m, ps := range p.prescales {
 		d.deciders = append(d.deciders, &decider{prescale: ps, counters: make([]uint64, len(ps))})
 		d.ev.Kept[m] = make([]bool, p.nrules[m])
@@ -200,6 +223,9 @@ func (p *plan) newDelivery(sink func(*Event) error) *delivery {
 // event delivers event i of c, the next one in emission order.
 func (d *delivery) event(c *chunk, i int) error {
 	e, ev := &c.events[i], &d.ev
+	if !e.decided {
+		d.w.decide(c, i, &e.ev)
+	}
 	nv := len(d.p.cfg.Values)
 	ev.Seq, ev.Run, ev.Orbit, ev.Bcid, ev.LumiSlice = d.decided, d.p.sample.Run, e.orbit, e.bcid, e.lumi
 	ev.Flags, ev.Missing, ev.Towers, ev.Truth = e.flags, e.missing, e.towers, e.truth
@@ -272,7 +298,7 @@ func (p *plan) runPipeline(ctx context.Context, src *GeneratorSource, sink func(
 	}()
 
 	var sinkErr error
-	d := p.newDelivery(sink)
+	d := p.newDelivery(sink, nil)
 	for c := range ordered {
 		<-c.ready
 		if sinkErr == nil {
@@ -342,6 +368,11 @@ type chunkEvent struct {
 	towers     int
 	truth      *recording.TruthRecord
 	slots      []*slot // of the event's fragments
+	// decided is set once the event's conditions are in the chunk's
+	// passed and values; until then ev holds its towers and hits, filled
+	// by the lane that built it, for the deciding goroutine (lanes.go).
+	decided bool
+	ev      trigger.Event
 }
 
 // chunk carries up to cap(events) events from the feeder through a
@@ -385,22 +416,34 @@ func (w *worker) process(c *chunk) {
 // event fills the towers of event i of c and evaluates every menu's
 // conditions on it.
 func (w *worker) event(c *chunk, i int) {
-	nv := len(w.values)
-	e := &c.events[i]
+	w.fill(&c.events[i], &w.ev)
+	w.decide(c, i, &w.ev)
+}
+
+// fill fills ev with the towers and muon hits of the fragments of e.
+func (w *worker) fill(e *chunkEvent, ev *trigger.Event) {
 	if w.table.wide != nil {
 		// A wide table has no fused slots; fill reads the fragments.
 		w.frags = w.frags[:0]
 		for _, s := range e.slots {
 			w.frags = append(w.frags, &s.f)
 		}
-		w.table.fill(w.frags, e.lumi, &w.ev)
+		w.table.fill(w.frags, e.lumi, ev)
 	} else {
-		w.table.fillSlots(e.slots, e.lumi, &w.ev)
+		w.table.fillSlots(e.slots, e.lumi, ev)
 	}
-	e.towers = w.ev.NumTowers()
+	e.towers = ev.NumTowers()
+}
+
+// decide evaluates every menu's conditions on ev, the filled event i of
+// c, into c.
+func (w *worker) decide(c *chunk, i int, ev *trigger.Event) {
+	nv := len(w.values)
+	e := &c.events[i]
+	e.decided = true
 	for m, sel := range w.sels {
 		f := &w.feats[m]
-		sel.ComputeFeatures(&w.ev, f)
+		sel.ComputeFeatures(ev, f)
 		sel.DecideFeatures(f, e.lumi, &w.dec)
 		n := len(w.dec.Passed)
 		copy(c.passed[m][i*n:(i+1)*n], w.dec.Passed)
