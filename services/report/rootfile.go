@@ -91,9 +91,12 @@ func newTreeWriter(path string, a *accumulator, values []replay.Quantity) (*tree
 		vars = append(vars, rtree.WriteVar{Name: unique("true_met"), Value: &t.trueMET},
 			rtree.WriteVar{Name: unique("process"), Value: &t.process}, rtree.WriteVar{Name: unique("interactions"), Value: &t.interactions})
 	}
-	// Baskets of 1 MiB: each basket costs a compressor set-up, which at
-	// the default size cost more than the compression itself.
-	t.w, err = rtree.NewWriter(f, TreeName, vars, rtree.WithTitle("one entry per event: ids, features, per-rule pass (before prescale) and keep (after prescale) bits"), rtree.WithLZ4(1), rtree.WithBasketSize(1<<20))
+	// Baskets of 128 KiB: each basket costs a compressor set-up, which at
+	// the default size cost more than the compression itself; but every
+	// branch fills its baskets at the same pace, so they are compressed
+	// all at once, and at 1 MiB that stalled the replay's deciding
+	// goroutine long enough for the lanes to run out of room.
+	t.w, err = rtree.NewWriter(f, TreeName, vars, rtree.WithTitle("one entry per event: ids, features, per-rule pass (before prescale) and keep (after prescale) bits"), rtree.WithLZ4(1), rtree.WithBasketSize(128<<10))
 	if err != nil {
 		f.Close()
 		return nil, fmt.Errorf("report: %w", err)

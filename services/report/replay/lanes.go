@@ -80,8 +80,10 @@ type verdicts struct {
 // laneChunks is the number of chunks each lane has in flight: enough for
 // a lane that runs ahead of another to go on deciding while the merge
 // waits for the other's events (4 made lanes wait for free chunks for a
-// sixth of a physics-menu replay).
-const laneChunks = 16
+// sixth of a physics-menu replay), and for one lane to go on while the
+// calling goroutine writes a batch of the ROOT tree's baskets (48
+// against 16: 4 - 10% more events/s, one lane on two cores).
+const laneChunks = 48
 
 // lane replays its share of a stream; see above. It is used by one
 // goroutine.
