@@ -458,13 +458,14 @@ func (l *lane) handOver() bool {
 
 // handOverBelow is the number of a lane's chunks the deciding goroutine
 // may have waiting before the lane decides its events itself again. A
-// lane that leaves every event to it (16, one lane on two cores) outran
-// it: the lane waited for free chunks while the deciding goroutine,
-// which reads every tower the lane wrote from the other processor's
-// cache, fell behind; a lane deciding everything itself (0) left the
-// second processor idle but for the report. Anything from 2 to 8 ran
-// alike.
-const handOverBelow = 4
+// lane that leaves every event to it outran it: the lane waited for
+// free chunks while the deciding goroutine, which reads every tower the
+// lane wrote from the other processor's cache, fell behind; a lane
+// deciding everything itself left the second processor idle but for the
+// report. With one lane on two cores and 48 chunks, 16 gave about 4% more
+// events/s than 4 with the starter menu and the same with the physics
+// menu (interleaved runs); 32 ran as 16.
+const handOverBelow = 16
 
 // takeChunk returns a free chunk with the truth records of its previous
 // use back in the lane's spares, or nil once the run is cancelled. It
