@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"runtime"
 	"slices"
 	"sync"
 
@@ -97,19 +98,22 @@ type lane struct {
 	// By timestamp an event can hold fragments of other counters, and
 	// every lane decodes everything.
 	headersOnly bool
-	failed      error // an event held a fragment its lane had not decoded
-	ctx         context.Context
-	r           *recording.Reader
-	size        int64
-	pool        *fragmentPool
-	cache       *slotCache
-	fz          *fuser
-	w           *worker
-	b           *builder.Builder
-	truth       truthStore
-	arrival     int64
-	seq         uint64 // events emitted by the builder so far
-	reading     *readJob
+	// spare is set when there are more processors than lanes, one for
+	// the deciding goroutine: else handing events over only adds work.
+	spare   bool
+	failed  error // an event held a fragment its lane had not decoded
+	ctx     context.Context
+	r       *recording.Reader
+	size    int64
+	pool    *fragmentPool
+	cache   *slotCache
+	fz      *fuser
+	w       *worker
+	b       *builder.Builder
+	truth   truthStore
+	arrival int64
+	seq     uint64 // events emitted by the builder so far
+	reading *readJob
 
 	to, from []chan *verdicts // per other lane; nil at k
 	results  chan<- *chunk
@@ -445,7 +449,8 @@ func (l *lane) emit(be *builder.Event) {
 
 // handOver reports whether the lane leaves the event it is building to
 // the deciding goroutine, filled but undecided: while that goroutine has
-// fewer than handOverBelow of the lane's chunks waiting.
+// a processor the lanes do not use and fewer than handOverBelow of the
+// lane's chunks waiting.
 func (l *lane) handOver() bool {
 	switch l.p.cfg.handOver {
 	case handOverNone:
@@ -453,7 +458,7 @@ func (l *lane) handOver() bool {
 	case handOverAll:
 		return true
 	}
-	return laneChunks-len(l.free)-1 < handOverBelow
+	return l.spare && laneChunks-len(l.free)-1 < handOverBelow
 }
 
 // handOverBelow is the number of a lane's chunks the deciding goroutine
@@ -525,7 +530,7 @@ func (p *plan) runLanes(ctx context.Context, s *StreamSource, sink func(*Event) 
 			return sum, err
 		}
 		pool := newFragmentPool()
-		l := &lane{k: k, n: n, p: p, ctx: ctx, cancel: cancel, r: r, headersOnly: p.bc.Mode == builder.ByCounter, size: s.size, pool: pool, cache: pool.cache(),
+		l := &lane{k: k, n: n, p: p, ctx: ctx, spare: runtime.GOMAXPROCS(0) > n, cancel: cancel, r: r, headersOnly: p.bc.Mode == builder.ByCounter, size: s.size, pool: pool, cache: pool.cache(),
 			fz: newFuser(p.table), w: w,
 			to: make([]chan *verdicts, n), from: make([]chan *verdicts, n),
 			results: results, free: make(chan *chunk, laneChunks)}
