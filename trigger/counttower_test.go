@@ -98,16 +98,7 @@ func TestCountTowersMatchGridTowers(t *testing.T) {
 		if len(counted.Towers) != 0 || len(counted.Counted.Words) == 0 {
 			t.Fatalf("event %d: %d towers not converted, %d words", i, len(counted.Towers), len(counted.Counted.Words))
 		}
-		sa.ComputeFeatures(ev, &fa)
-		sb.ComputeFeatures(counted, &fb)
-		if what, ok := sameFeatures(&fa, &fb); !ok {
-			t.Fatalf("event %d: %s differ", i, what)
-		}
-		sa.Decide(ev, &da)
-		sb.Decide(counted, &db)
-		if da.Accept != db.Accept || !slices.Equal(da.Passed, db.Passed) || !slices.Equal(da.Kept, db.Kept) || !slices.Equal(da.Streams, db.Streams) {
-			t.Fatalf("event %d: decisions differ", i)
-		}
+		sameOutcome(t, i, sa, sb, ev, counted, &fa, &fb, &da, &db)
 	}
 }
 

@@ -94,19 +94,26 @@ func TestGridTowersMatchTowers(t *testing.T) {
 			t.Fatalf("event %d: no tower at a cell centre", i)
 		}
 		grid += len(packed.GridTowers)
-		sa.ComputeFeatures(ev, &fa)
-		sb.ComputeFeatures(packed, &fb)
-		if what, ok := sameFeatures(&fa, &fb); !ok {
-			t.Fatalf("event %d: %s differ", i, what)
-		}
-		sa.Decide(ev, &da)
-		sb.Decide(packed, &db)
-		if da.Accept != db.Accept || !slices.Equal(da.Passed, db.Passed) || !slices.Equal(da.Kept, db.Kept) || !slices.Equal(da.Streams, db.Streams) {
-			t.Fatalf("event %d: decisions differ", i)
-		}
+		sameOutcome(t, i, sa, sb, ev, packed, &fa, &fb, &da, &db)
 	}
 	if grid < 100*len(evs) {
 		t.Fatalf("only %d grid towers in %d events", grid, len(evs))
+	}
+}
+
+// sameOutcome fails t unless selectors sa and sb, of the same menu, give
+// event a and its other form b the same features and decisions.
+func sameOutcome(t *testing.T, i int, sa, sb *Selector, a, b *Event, fa, fb *Features, da, db *Decision) {
+	t.Helper()
+	sa.ComputeFeatures(a, fa)
+	sb.ComputeFeatures(b, fb)
+	if what, ok := sameFeatures(fa, fb); !ok {
+		t.Fatalf("event %d: %s differ", i, what)
+	}
+	sa.Decide(a, da)
+	sb.Decide(b, db)
+	if da.Accept != db.Accept || !slices.Equal(da.Passed, db.Passed) || !slices.Equal(da.Kept, db.Kept) || !slices.Equal(da.Streams, db.Streams) {
+		t.Fatalf("event %d: decisions differ", i)
 	}
 }
 
