@@ -110,13 +110,7 @@ func TestCountTowersMatchGridTowers(t *testing.T) {
 // selections and grids (one too small for the cells, one invalid).
 func TestCountTowersEdgeCases(t *testing.T) {
 	rng := rand.New(rand.NewPCG(18, 19))
-	em, _ := NewEMClusterFinder(EMClusterConfig{Seed: 2})
-	ak, _ := NewAntiKtFinder(AntiKtConfig{Radius: 0.4, MinET: 1, Towers: true})
-	win, err := NewWindowFinder(WindowConfig{MinET: 1})
-	if err != nil {
-		t.Fatal(err)
-	}
-	colls := []CollectionConfig{{Name: "ems", Algorithm: em}, {Name: "akt", Algorithm: ak}, {Name: "win", Algorithm: win}}
+	colls := edgeCollections(t)
 	table := slices.Clone(countTable(lanternGrid()))
 	// Entries off the Lantern grid: beyond its rows and columns, and at
 	// the largest indices a GridTower can hold.

@@ -101,6 +101,19 @@ func TestGridTowersMatchTowers(t *testing.T) {
 	}
 }
 
+// edgeCollections are the finders the edge-case tests run: one on the
+// hot cells and the EM layer, one on the selected towers, one on cells.
+func edgeCollections(t *testing.T) []CollectionConfig {
+	t.Helper()
+	em, _ := NewEMClusterFinder(EMClusterConfig{Seed: 2})
+	ak, _ := NewAntiKtFinder(AntiKtConfig{Radius: 0.4, MinET: 1, Towers: true})
+	win, err := NewWindowFinder(WindowConfig{MinET: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return []CollectionConfig{{Name: "ems", Algorithm: em}, {Name: "akt", Algorithm: ak}, {Name: "win", Algorithm: win}}
+}
+
 // sameOutcome fails t unless selectors sa and sb, of the same menu, give
 // event a and its other form b the same features and decisions.
 func sameOutcome(t *testing.T, i int, sa, sb *Selector, a, b *Event, fa, fb *Features, da, db *Decision) {
@@ -124,13 +137,7 @@ func sameOutcome(t *testing.T, i int, sa, sb *Selector, a, b *Event, fa, fb *Fea
 // invalid).
 func TestGridTowersEdgeCases(t *testing.T) {
 	rng := rand.New(rand.NewPCG(8, 9))
-	em, _ := NewEMClusterFinder(EMClusterConfig{Seed: 2})
-	ak, _ := NewAntiKtFinder(AntiKtConfig{Radius: 0.4, MinET: 1, Towers: true})
-	win, err := NewWindowFinder(WindowConfig{MinET: 1})
-	if err != nil {
-		t.Fatal(err)
-	}
-	colls := []CollectionConfig{{Name: "ems", Algorithm: em}, {Name: "akt", Algorithm: ak}, {Name: "win", Algorithm: win}}
+	colls := edgeCollections(t)
 	grids := []Grid{lanternGrid(), {EtaBins: 6, PhiBins: 4, EtaMin: -0.3, EtaStep: 0.1}, {}}
 	ets := []float64{0, 0, -1, 3, 0.2, 7, 45, math.NaN(), math.Inf(1), math.Inf(-1), 1e300, 5e-324}
 	for gi, g := range grids {
