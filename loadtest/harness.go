@@ -86,6 +86,12 @@ type Config struct {
 	// measured steps publish, from a subscriber of its own; it costs the
 	// run the delivery, so measuring runs leave it nil.
 	Decisions func(data []byte)
+	// Instrument, when set, is called after the warm-up, just before the
+	// first measured step, and the function it returns after the last
+	// step, before the baselines and the closing spin test: what it
+	// starts (a CPU profile, an execution trace) sees the measured steps
+	// alone. An error from it ends the run before any step.
+	Instrument func() (done func(), err error)
 }
 
 func (c *Config) fill() error {
@@ -176,6 +182,14 @@ func Run(ctx context.Context, cfg Config) (*Report, error) {
 	if _, err := h.step(ctx, 0, -1, min(ds.Crossings, 20_000)); err != nil {
 		return nil, err
 	}
+	done := func() {}
+	if cfg.Instrument != nil {
+		d, err := cfg.Instrument()
+		if err != nil {
+			return nil, err
+		}
+		done = d
+	}
 	for _, r := range cfg.Rates {
 		if ctx.Err() != nil {
 			break
@@ -217,6 +231,7 @@ func Run(ctx context.Context, cfg Config) (*Report, error) {
 			rep.Saturation = saturation(rep.Steps)
 		}
 	}
+	done()
 	if runErr == nil && cfg.BaselineRuns > 0 && ctx.Err() == nil {
 		hops := []int{1, 2}
 		if cfg.NoRelay {

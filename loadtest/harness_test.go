@@ -7,6 +7,7 @@ import (
 	"os"
 	"path/filepath"
 	"sort"
+	"strings"
 	"sync"
 	"testing"
 	"time"
@@ -30,12 +31,39 @@ func TestHarnessEndToEnd(t *testing.T) {
 		t.Fatal(err)
 	}
 	t.Cleanup(nw.Close)
+	// The progress lines and the instrumentation hook write into one log,
+	// so that the hook's place among the phases can be checked.
+	log := &lockedLog{}
 	rep, err := Run(context.Background(), Config{
 		Dataset: ds, Origin: "test", Network: nw, Workers: 2, Rates: []float64{3000, 0}, Duration: time.Second,
 		BaselineRuns: 1, BaselineLength: 100 * time.Millisecond, KeepMemory: true, MemoryEvery: 50 * time.Millisecond,
+		Progress: log,
+		Instrument: func() (func(), error) {
+			log.Write([]byte("\n<instrument>\n"))
+			return func() { log.Write([]byte("\n</instrument>\n")) }, nil
+		},
 	})
 	if err != nil {
 		t.Fatal(err)
+	}
+	// What the hook starts sees both steps and nothing else: not the
+	// warm-up, not the baselines.
+	text := log.String()
+	on, off := strings.Index(text, "<instrument>"), strings.Index(text, "</instrument>")
+	if on < 0 || off < on || strings.Count(text, "instrument>") != 2 {
+		t.Fatalf("instrumentation hook not called once around the steps:\n%s", text)
+	}
+	for _, phase := range []struct {
+		name   string
+		inside bool
+	}{{"warm-up at", false}, {"step 1 at", true}, {"step 2 at", true}, {"raw transport", false}} {
+		i, j := strings.Index(text, phase.name), strings.LastIndex(text, phase.name)
+		if i < 0 {
+			t.Fatalf("no progress line %q:\n%s", phase.name, text)
+		}
+		if in := i > on && j < off; in != phase.inside || (!in && i < off && j > on) {
+			t.Errorf("progress %q at %d..%d, instrumented %d..%d: want inside = %v", phase.name, i, j, on, off, phase.inside)
+		}
 	}
 	if len(rep.Steps) != 2 || rep.Steps[0].OfferedHz != 0 || rep.Steps[1].OfferedHz != 3000 {
 		t.Fatalf("steps %+v, want the unpaced step first, then 3000/s", rep.Steps)
@@ -112,6 +140,24 @@ func TestHarnessEndToEnd(t *testing.T) {
 	if b := img.Bounds(); b.Dx() != 800 || b.Dy() != 900 {
 		t.Fatalf("plot of %v pixels, want 800 x 900", b)
 	}
+}
+
+// lockedLog is a strings.Builder safe for concurrent writes.
+type lockedLog struct {
+	mu sync.Mutex
+	b  strings.Builder
+}
+
+func (l *lockedLog) Write(p []byte) (int, error) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.Write(p)
+}
+
+func (l *lockedLog) String() string {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.String()
 }
 
 // decisionLog collects the rules each crossing passed before prescale.

@@ -112,35 +112,89 @@ func checkHostPort(flagName, addr string) error {
 // called more than once and reports the first call's error. An empty
 // path profiles nothing.
 func startCPUProfile(path string) (stop func() error, err error) {
-	return startRecording(path, "cpu profile", pprof.StartCPUProfile, pprof.StopCPUProfile)
+	return startCapture(openCPUProfile(path))
 }
 
 // startTrace is startCPUProfile for an execution trace (go tool trace).
 func startTrace(path string) (stop func() error, err error) {
-	return startRecording(path, "trace", trace.Start, trace.Stop)
+	return startCapture(openTrace(path))
 }
 
-// startRecording creates the file at path, calls begin on it and returns
-// the function that calls end and closes the file, once.
-func startRecording(path, what string, begin func(io.Writer) error, end func()) (stop func() error, err error) {
+func openCPUProfile(path string) (*capture, error) {
+	return openCapture(path, "cpu profile", pprof.StartCPUProfile, pprof.StopCPUProfile)
+}
+
+func openTrace(path string) (*capture, error) {
+	return openCapture(path, "trace", trace.Start, trace.Stop)
+}
+
+func startCapture(r *capture, err error) (stop func() error, _ error) {
+	if err != nil {
+		return nil, err
+	}
+	if err := r.start(); err != nil {
+		return nil, err
+	}
+	return r.stop, nil
+}
+
+// capture is a CPU profile or an execution trace into a file, created
+// when the command starts (so an unwritable path fails before anything
+// runs) and begun when the part worth recording starts. A capture is
+// used by one goroutine.
+type capture struct {
+	what    string
+	f       *os.File
+	begin   func(io.Writer) error
+	end     func()
+	started bool
+	once    sync.Once
+	err     error
+}
+
+// openCapture creates the file at path for begin and end to record
+// into; an empty path gives a capture that records nothing.
+func openCapture(path, what string, begin func(io.Writer) error, end func()) (*capture, error) {
+	r := &capture{what: what, begin: begin, end: end}
 	if path == "" {
-		return func() error { return nil }, nil
+		return r, nil
 	}
 	f, err := os.Create(path)
 	if err != nil {
 		return nil, fmt.Errorf("cli: %s: %w", what, err)
 	}
-	if err := begin(f); err != nil {
-		f.Close()
-		return nil, fmt.Errorf("cli: %s: %w", what, err)
+	r.f = f
+	return r, nil
+}
+
+// start begins recording; a second call does nothing. On an error the
+// file is closed.
+func (r *capture) start() error {
+	if r.f == nil || r.started {
+		return nil
 	}
-	var once sync.Once
-	var closeErr error
-	return func() error {
-		once.Do(func() {
-			end()
-			closeErr = f.Close()
-		})
-		return closeErr
-	}, nil
+	if err := r.begin(r.f); err != nil {
+		r.f.Close()
+		r.f = nil
+		return fmt.Errorf("cli: %s: %w", r.what, err)
+	}
+	r.started = true
+	return nil
+}
+
+// stop ends the recording, if it began, and closes the file. It may be
+// called more than once and reports the first call's error.
+func (r *capture) stop() error {
+	r.once.Do(func() {
+		if r.f == nil {
+			return
+		}
+		if r.started {
+			r.end()
+		}
+		if err := r.f.Close(); err != nil {
+			r.err = fmt.Errorf("cli: %s: %w", r.what, err)
+		}
+	})
+	return r.err
 }

@@ -2,6 +2,7 @@ package cli
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"io"
 	"math"
@@ -45,8 +46,8 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 	soak := fs.Duration("soak", 0, "one step at --rate for this long, sampling memory every second (e.g. 10m)")
 	jsonPath := fs.String("json", "", "write the report as JSON to `FILE`")
 	pngPath := fs.String("png", "", "plot throughput and latency against the offered rate into `FILE` (PNG)")
-	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the measured part to `FILE`")
-	traceFile := fs.String("trace", "", "write an execution trace of the measured part to `FILE` (go tool trace; large: keep steps short)")
+	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the measured steps (no warm-up, spin test or baseline) to `FILE`")
+	traceFile := fs.String("trace", "", "write an execution trace of the measured steps to `FILE` (go tool trace; large: keep steps short)")
 	gogc := fs.Int("gogc", 100, "garbage collector target percentage during the test (as GOGC; 100 is Go's default)")
 	quiet := fs.Bool("quiet", false, "no progress lines (they go to stderr, and only to a terminal)")
 	if err := parse(fs, args, 0); err != nil {
@@ -116,6 +117,18 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
+	// Both files are created now, so that an unwritable path fails before
+	// anything runs; they record the measured steps alone.
+	prof, err := openCPUProfile(*cpuProfile)
+	if err != nil {
+		return err
+	}
+	defer prof.stop()
+	tr, err := openTrace(*traceFile)
+	if err != nil {
+		return err
+	}
+	defer tr.stop()
 	progress := io.Writer(nil)
 	if !*quiet && isTerminal(e.stderr) {
 		progress = e.stderr
@@ -192,16 +205,15 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 	}
 	old := debug.SetGCPercent(*gogc)
 	defer debug.SetGCPercent(old)
-	stopProfile, err := startCPUProfile(*cpuProfile)
-	if err != nil {
-		return err
+	lc.Instrument = func() (func(), error) {
+		if err := prof.start(); err != nil {
+			return nil, err
+		}
+		if err := tr.start(); err != nil {
+			return nil, err
+		}
+		return func() { prof.stop(); tr.stop() }, nil
 	}
-	defer stopProfile()
-	stopTrace, err := startTrace(*traceFile)
-	if err != nil {
-		return err
-	}
-	defer stopTrace()
 	rep, runErr := loadtest.Run(ctx, lc)
 	if rep != nil {
 		rep.Command = "bunchsieve loadtest " + strings.Join(args, " ")
@@ -217,7 +229,7 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 			}
 		}
 	}
-	return runErr
+	return errors.Join(runErr, prof.stop(), tr.stop())
 }
 
 // parseRate reads a rate in crossings/s, with an optional k or M suffix.

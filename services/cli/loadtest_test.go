@@ -15,9 +15,9 @@ import (
 // report and the plot it was asked for.
 func TestLoadtestCommand(t *testing.T) {
 	dir := t.TempDir()
-	jsonPath, pngPath, tracePath := filepath.Join(dir, "lt.json"), filepath.Join(dir, "lt.png"), filepath.Join(dir, "lt.trace")
+	jsonPath, pngPath, tracePath, profPath := filepath.Join(dir, "lt.json"), filepath.Join(dir, "lt.png"), filepath.Join(dir, "lt.trace"), filepath.Join(dir, "lt.prof")
 	code, stdout, stderr := runCLI(t, time.Minute, "loadtest", "--dataset", "1200", "--rates", "1k,2k", "--duration", "500ms",
-		"--baseline-runs", "1", "--baseline-length", "100ms", "--json", jsonPath, "--png", pngPath, "--trace", tracePath)
+		"--baseline-runs", "1", "--baseline-length", "100ms", "--json", jsonPath, "--png", pngPath, "--trace", tracePath, "--cpuprofile", profPath)
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, stderr)
 	}
@@ -32,6 +32,10 @@ func TestLoadtestCommand(t *testing.T) {
 	// An execution trace starts with the runtime's header, "go 1.".
 	if tr, err := os.ReadFile(tracePath); err != nil || !strings.HasPrefix(string(tr), "go 1.") {
 		t.Errorf("--trace wrote %d bytes (%v), not an execution trace", len(tr), err)
+	}
+	// A CPU profile is gzip-compressed (RFC 1952: it starts 0x1f 0x8b).
+	if p, err := os.ReadFile(profPath); err != nil || len(p) < 2 || p[0] != 0x1f || p[1] != 0x8b {
+		t.Errorf("--cpuprofile wrote %d bytes (%v), not a profile", len(p), err)
 	}
 	data, err := os.ReadFile(jsonPath)
 	if err != nil {
@@ -51,6 +55,24 @@ func TestLoadtestCommand(t *testing.T) {
 	}
 	if fi, err := os.Stat(pngPath); err != nil || fi.Size() == 0 {
 		t.Fatalf("plot: %v", err)
+	}
+}
+
+// An unwritable profile or trace path is a one-line error, and no report
+// is written.
+func TestLoadtestUnwritableCapture(t *testing.T) {
+	dir := t.TempDir()
+	for _, flag := range []string{"--cpuprofile", "--trace"} {
+		jsonPath := filepath.Join(dir, "lt.json")
+		code, _, stderr := runCLI(t, time.Minute, "loadtest", "--dataset", "1200", "--rate", "1k", "--duration", "200ms",
+			"--baseline-runs", "0", "--json", jsonPath, flag, filepath.Join(dir, "missing", "x"))
+		what := map[string]string{"--cpuprofile": "cpu profile", "--trace": "trace"}[flag]
+		if code == 0 || strings.Count(stderr, "\n") != 1 || !strings.Contains(stderr, what) {
+			t.Errorf("%s unwritable: exit %d, stderr %q", flag, code, stderr)
+		}
+		if _, err := os.Stat(jsonPath); !os.IsNotExist(err) {
+			t.Errorf("%s unwritable: a report was written anyway (%v)", flag, err)
+		}
 	}
 }
 
