@@ -282,13 +282,12 @@ func (a *Assembler) takeLocked(msg *nats.Msg, arrival int64) {
 		a.bytesIn[i] += uint64(len(msg.Data))
 	}
 	for _, h := range batch.frags {
-		f := &h.frag
-		if err := a.b.Add(f, arrival, batch.sentUnixNs); err != nil {
+		if err := a.add(h, arrival, batch.sentUnixNs); err != nil {
 			if errors.Is(err, builder.ErrWindowFull) {
 				// Block policy: make room by advancing, then retry once; a
 				// second refusal is counted by the builder.
 				a.b.Advance(arrival)
-				err = a.b.Add(f, arrival, batch.sentUnixNs)
+				err = a.add(h, arrival, batch.sentUnixNs)
 			}
 			if err != nil {
 				// Not kept by the builder.
@@ -304,6 +303,16 @@ func (a *Assembler) takeLocked(msg *nats.Msg, arrival int64) {
 			close(a.done)
 		}
 	}
+}
+
+// add hands one decoded fragment to the builder, with the verdict of the
+// checksum taken in decoding where there is one. Called with a.mu held.
+func (a *Assembler) add(h *heldFragment, arrival, sent int64) error {
+	if h.checked && !a.cfg.Builder.SkipChecksum {
+		return a.b.AddChecked(&h.frag, h.intact, arrival, sent)
+	}
+	// A decoded payload, or checksums off: the builder decides.
+	return a.b.Add(&h.frag, arrival, sent)
 }
 
 // logDiscard reports discarded fragments at most once a second, saying how

@@ -63,6 +63,13 @@ type heldFragment struct {
 	// foreign is set when proto.Unmarshal filled frag: its payload is then
 	// proto's own, and frag is reset before the record is used again.
 	foreign bool
+	// checked is set when the checksum was verified in decoding, straight
+	// from a calorimeter payload in the readout's layout
+	// (pb.Checksummer.SumPacked), and intact holds the outcome: frag then
+	// has no payload, as nothing downstream reads it (the builder takes
+	// the verdict, events carry raw).
+	checked bool
+	intact  bool
 }
 
 // wireBatch is one decoded FragmentBatch.
@@ -79,6 +86,10 @@ type wireBatch struct {
 type fragmentPool struct {
 	free  []*heldFragment
 	owner map[*pb.Fragment]*heldFragment
+	// sum and words serve the checksums taken in decoding; words is
+	// scratch (SumPacked keeps no towers here).
+	sum   pb.Checksummer
+	words []uint32
 }
 
 func newFragmentPool() *fragmentPool {
@@ -148,7 +159,7 @@ func decodeBatch(data []byte, wb *wireBatch, p *fragmentPool) error {
 			data = data[n:]
 			h := p.get()
 			wb.frags = append(wb.frags, h)
-			if err := decodeFragment(raw, h); err != nil {
+			if err := decodeFragment(raw, h, p); err != nil {
 				return wb.fail(p)
 			}
 		default:
@@ -170,12 +181,14 @@ func (wb *wireBatch) fail(p *fragmentPool) error {
 	return errWire
 }
 
-// decodeFragment fills h from raw, the encoding of one Fragment.
-func decodeFragment(raw []byte, h *heldFragment) error {
+// decodeFragment fills h from raw, the encoding of one Fragment, with
+// p's checksummer.
+func decodeFragment(raw []byte, h *heldFragment, p *fragmentPool) error {
 	h.raw = raw
-	if h.fast(raw) {
+	if h.fast(raw, p) {
 		return nil
 	}
+	h.checked = false
 	// Not the readout's usual layout: let proto decide what it means.
 	h.foreign = true
 	h.raw = raw
@@ -186,13 +199,17 @@ func decodeFragment(raw []byte, h *heldFragment) error {
 }
 
 // fast decodes raw if it has only the fields the fast path knows, each
-// with its proto wire type, and at most one calorimeter payload. It
-// reports false otherwise, leaving h in an unspecified state.
-func (h *heldFragment) fast(raw []byte) bool {
+// with its proto wire type, and at most one calorimeter payload. A
+// calorimeter payload in the readout's layout (pb.SplitCalo) is not
+// decoded but checksummed with the header (h.checked). It reports false
+// otherwise, leaving h in an unspecified state.
+func (h *heldFragment) fast(raw []byte, p *fragmentPool) bool {
 	f := &h.frag
 	f.SourceId, f.Run, f.Orbit, f.Bcid, f.TimestampNs, f.Status, f.Checksum = 0, 0, 0, 0, 0, 0, 0
 	f.Payload = nil
 	h.calo.Towers, h.calo.EtCounts = h.calo.Towers[:0], h.calo.EtCounts[:0]
+	h.checked = false
+	var towers, counts []byte
 	calo := false
 	for len(raw) > 0 {
 		if raw[0] == fragMuon<<3|byte(protowire.BytesType) {
@@ -218,7 +235,13 @@ func (h *heldFragment) fast(raw []byte) bool {
 				return false
 			}
 			payload, n := protowire.ConsumeBytes(raw)
-			if n < 0 || !h.decodeCalo(payload) {
+			if n < 0 {
+				return false
+			}
+			var packed bool
+			if towers, counts, packed = pb.SplitCalo(payload); packed {
+				h.checked = true
+			} else if !h.decodeCalo(payload) {
 				return false
 			}
 			raw = raw[n:]
@@ -237,6 +260,17 @@ func (h *heldFragment) fast(raw []byte) bool {
 		if !pb.SetFragmentVarint(f, num, v) {
 			return false
 		}
+	}
+	if h.checked {
+		// The header is complete only now: the fields may come in any
+		// order.
+		sum, words, ok := p.sum.SumPacked(f, towers, counts, 0, p.words[:0])
+		if !ok {
+			return false
+		}
+		p.words = words
+		f.Payload = nil
+		h.intact = sum == f.Checksum
 	}
 	return true
 }

@@ -44,8 +44,9 @@ func sampleBatches(tb testing.TB, crossings uint64, faults []emulator.Fault) [][
 
 // checkAgainstProto decodes data with the fast decoder and with
 // proto.Unmarshal (the reference) and fails unless both refuse it or both
-// give the same batch.
-func checkAgainstProto(t *testing.T, data []byte) {
+// give the same batch. It returns how many fragments were checksummed in
+// decoding and how many of those were found damaged.
+func checkAgainstProto(t *testing.T, data []byte) (checked, damaged int) {
 	t.Helper()
 	var want pb.FragmentBatch
 	werr := proto.Unmarshal(data, &want)
@@ -56,7 +57,7 @@ func checkAgainstProto(t *testing.T, data []byte) {
 		t.Fatalf("proto.Unmarshal error %v, fast decoder error %v", werr, gerr)
 	}
 	if werr != nil {
-		return
+		return 0, 0
 	}
 	if got.sourceID != want.SourceId || got.sentUnixNs != want.SentUnixNs || got.endOfRun != want.EndOfRun {
 		t.Fatalf("batch fields: got source %d sent %d end %v, want %d %d %v", got.sourceID, got.sentUnixNs, got.endOfRun, want.SourceId, want.SentUnixNs, want.EndOfRun)
@@ -65,8 +66,23 @@ func checkAgainstProto(t *testing.T, data []byte) {
 		t.Fatalf("%d fragments, proto has %d", len(got.frags), len(want.Fragments))
 	}
 	for i, h := range got.frags {
-		if !proto.Equal(&h.frag, want.Fragments[i]) {
-			t.Fatalf("fragment %d: got %v, proto %v", i, &h.frag, want.Fragments[i])
+		w := want.Fragments[i]
+		if h.checked {
+			// The payload was checksummed, not decoded: the header and
+			// the verdict must be proto's (Fragment.Intact on proto's
+			// decoding, Checksummer.Sum).
+			if h.frag.Payload != nil || w.GetCalo() == nil || h.intact != w.Intact() {
+				t.Fatalf("fragment %d: checked, payload %v, intact %v; proto: %v, intact %v", i, h.frag.Payload, h.intact, w, w.Intact())
+			}
+			w = proto.Clone(w).(*pb.Fragment)
+			w.Payload = nil
+			checked++
+			if !h.intact {
+				damaged++
+			}
+		}
+		if !proto.Equal(&h.frag, w) {
+			t.Fatalf("fragment %d: got %v, proto %v", i, &h.frag, w)
 		}
 		// The bytes kept are the fragment's own encoding.
 		var again pb.Fragment
@@ -74,6 +90,7 @@ func checkAgainstProto(t *testing.T, data []byte) {
 			t.Fatalf("fragment %d: kept bytes decode to %v (%v)", i, &again, err)
 		}
 	}
+	return checked, damaged
 }
 
 // The fast decoder gives what proto.Unmarshal (google.golang.org/protobuf,
@@ -81,8 +98,14 @@ func checkAgainstProto(t *testing.T, data []byte) {
 // included.
 func TestDecodeBatchMatchesProto(t *testing.T) {
 	faults := []emulator.Fault{{Drop: 0.02, Duplicate: 0.02, Corrupt: 0.01, Reorder: 0.02}}
+	checked, damaged := 0, 0
 	for _, data := range sampleBatches(t, 600, faults) {
-		checkAgainstProto(t, data)
+		c, d := checkAgainstProto(t, data)
+		checked, damaged = checked+c, damaged+d
+	}
+	// Both verdicts of the checksum taken in decoding were exercised.
+	if checked == 0 || damaged == 0 || damaged == checked {
+		t.Fatalf("%d fragments checksummed in decoding, %d of them damaged", checked, damaged)
 	}
 }
 

@@ -20,10 +20,11 @@ import (
 // and a calorimeter payload whose tower indices and ET counts are the
 // packed lists towers and counts (the contents of CaloPayload's fields 1
 // and 2, as SplitCalo gives them); f's own payload is not looked at. In
-// the same pass it appends to words[:0], for every pair with a nonzero
-// count and an index below ncells, the word index | count<<16, and
-// returns them (ncells 0 keeps none; words may then be a scratch slice).
-// ok is false, with sum and out unspecified, when a list is not a valid
+// the same pass it appends to words, for every pair with a nonzero count
+// and an index below ncells, the word index | count<<16, and returns the
+// result (ncells 0 keeps none; words may then be a scratch slice). ok is
+// false, with sum and out unspecified and words[:len(words)] untouched,
+// when a list is not a valid
 // packed varint list or a kept count does not fit 16 bits; the caller
 // then decodes the payload and uses Sum.
 func (c *Checksummer) SumPacked(f *Fragment, towers, counts []byte, ncells int, words []uint32) (sum uint32, out []uint32, ok bool) {
@@ -43,9 +44,9 @@ func (c *Checksummer) SumPacked(f *Fragment, towers, counts []byte, ncells int, 
 
 	// Every value takes at least a byte, so the shorter list's length
 	// bounds the number of pairs.
-	out = slices.Grow(words[:0], min(len(towers), len(counts)))
+	out = slices.Grow(words, min(len(towers), len(counts)))
+	j := len(out)
 	out = out[:cap(out)]
-	j := 0
 	ti, ci := 0, 0
 	for ti < len(towers) && ci < len(counts) {
 		if n+32 > len(buf) {

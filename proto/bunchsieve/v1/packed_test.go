@@ -47,7 +47,8 @@ func packedCase(rng *rand.Rand) *Fragment {
 // SumPacked, reading the packed lists as proto.Marshal (the reference
 // encoder, google.golang.org/protobuf) writes them, gives what Sum and the
 // byte-by-byte reference give for the decoded fragment, and keeps exactly
-// the pairs with a nonzero count and an index below the table's size.
+// the pairs with a nonzero count and an index below the table's size,
+// after the words already given.
 func TestSumPackedMatchesSum(t *testing.T) {
 	rng := rand.New(rand.NewPCG(11, 12))
 	var c, fused Checksummer
@@ -71,7 +72,10 @@ func TestSumPackedMatchesSum(t *testing.T) {
 				want = append(want, tw|calo.EtCounts[k]<<16)
 			}
 		}
-		sum, got, ok := fused.SumPacked(f, towers, counts, ncells, words)
+		// Words are appended after what the slice holds.
+		prefix := []uint32{uint32(i), 0xdead}[:i%3]
+		want = append(slices.Clone(prefix), want...)
+		sum, got, ok := fused.SumPacked(f, towers, counts, ncells, append(words[:0], prefix...))
 		kept16 := true
 		for k, tw := range calo.Towers {
 			if k < len(calo.EtCounts) && calo.EtCounts[k] > 0xffff && int(tw) < ncells {

@@ -1,7 +1,6 @@
 package replay
 
 import (
-
 	"google.golang.org/protobuf/encoding/protowire"
 
 	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
@@ -83,7 +82,7 @@ func (fz *fuser) fuseFields(hdr *[10]uint64, payload []byte, num byte, s *slot) 
 	f := &s.f
 	setHeader(f, hdr)
 	f.Payload = nil
-	sum, words, ok := fz.sum.SumPacked(f, towers, counts, len(fz.table.cells), s.towers)
+	sum, words, ok := fz.sum.SumPacked(f, towers, counts, len(fz.table.cells), s.towers[:0])
 	if !ok {
 		return 0, false
 	}
