@@ -173,4 +173,11 @@ func TestCountTowersOffTheTable(t *testing.T) {
 	if f.SumET != 10 || f.Used != 1 || f.Bad != 2 {
 		t.Fatalf("sum ET %v, %d used, %d bad; want 10, 1, 2", f.SumET, f.Used, f.Bad)
 	}
+	// The GridTowers the words stand for give the same.
+	grid := &Event{GridTowers: ev.Counted.AppendGridTowers(nil)}
+	var fg Features
+	computeFeatures(grid, &cfg, &fg)
+	if len(grid.GridTowers) != 3 || fg.SumET != 10 || fg.Used != 1 || fg.Bad != 2 {
+		t.Fatalf("as GridTowers: %d towers, sum ET %v, %d used, %d bad; want 3, 10, 1, 2", len(grid.GridTowers), fg.SumET, fg.Used, fg.Bad)
+	}
 }

@@ -136,6 +136,23 @@ type CountTowers struct {
 	GeVPerCount float64
 }
 
+// AppendGridTowers appends the GridTowers c's words stand for to dst, in
+// their order, and returns the result; a word off the table gives a
+// GridTower with a NaN E_T at cell zero, which the features ignore and
+// count in Features.Bad as they do the word.
+func (c *CountTowers) AppendGridTowers(dst []GridTower) []GridTower {
+	for _, w := range c.Words {
+		if int(w&0xffff) >= len(c.Cells) {
+			dst = append(dst, GridTower{ET: math.NaN()})
+			continue
+		}
+		t := c.Cells[w&0xffff]
+		t.ET = float64(w>>16) * c.GeVPerCount
+		dst = append(dst, t)
+	}
+	return dst
+}
+
 // Event is what the selection sees of one bunch crossing: the calorimeter
 // towers, the muon-station hits and the lumi slice the crossing belongs
 // to. The towers are Towers, then GridTowers, then the words of Counted,

@@ -519,6 +519,7 @@ func (s *Selector) fillEvent(be *pb.BuiltEvent) {
 func FillEvent(g *detector.Geometry, fragments []*pb.Fragment, lumiSlice uint32, ev *trigger.Event) {
 	ev.Towers = ev.Towers[:0]
 	ev.GridTowers = ev.GridTowers[:0]
+	ev.Counted.Words = ev.Counted.Words[:0]
 	ev.MuonHits = ev.MuonHits[:0]
 	ev.LumiSlice = lumiSlice
 	grid := gridForm(g)

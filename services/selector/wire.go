@@ -233,9 +233,12 @@ func (t *towerTable) add(out []trigger.GridTower, wide []trigger.Tower, idx, c u
 	return out, wide
 }
 
-// wireFill is the scratch of fillWire: one fragment's decoded arrays.
+// wireFill is the scratch of fillWire: one fragment's decoded arrays, and
+// the pass that reads packed lists into the words of trigger.CountTowers
+// (its checksum is not needed here: the builder checked it).
 type wireFill struct {
 	towers, counts []uint32
+	pass           pb.Checksummer
 }
 
 // fillWire decodes the payloads of encoded fragments into ev, as
@@ -244,8 +247,16 @@ type wireFill struct {
 // to the reference path (a muon payload not written as proto.Marshal
 // writes it, or given together with another payload). It returns errWire
 // for bytes that are not a protobuf encoding.
+//
+// Towers go into ev.Counted, 4-byte words read through the table, while
+// every calorimeter payload so far was in the readout's layout; the first
+// that is not turns the words into GridTowers and the rest of the event
+// follows them there, so the towers keep their order either way (the
+// features' sums depend on it).
 func (t *towerTable) fillWire(frags [][]byte, lumiSlice uint32, ev *trigger.Event, sc *wireFill) (ok bool, err error) {
 	out, wide, hits := ev.GridTowers[:0], ev.Towers[:0], ev.MuonHits[:0]
+	ct := trigger.CountTowers{Words: ev.Counted.Words[:0], Cells: t.cells, GeVPerCount: t.lsb}
+	counted := !t.wide && len(t.cells) <= 1<<16
 	for _, raw := range frags {
 		payload, kind := scanFragment(raw)
 		switch kind {
@@ -257,12 +268,25 @@ func (t *towerTable) fillWire(frags [][]byte, lumiSlice uint32, ev *trigger.Even
 			}
 			continue
 		case fragOnePayload:
-			if towers, counts, ok := canonicalCalo(payload); ok {
+			if towers, counts, ok := pb.SplitCalo(payload); ok {
+				if counted {
+					var more []uint32
+					if _, more, ok = sc.pass.SumPacked(nil, towers, counts, len(t.cells), ct.Words); ok {
+						ct.Words = more
+						continue
+					}
+				}
+				if counted {
+					out, ct.Words, counted = ct.AppendGridTowers(out), ct.Words[:0], false
+				}
 				if out, wide, ok = t.appendPairs(out, wide, towers, counts); ok {
 					continue
 				}
 				return false, errWire
 			}
+		}
+		if counted {
+			out, ct.Words, counted = ct.AppendGridTowers(out), ct.Words[:0], false
 		}
 		// Any other layout: decode the arrays first, as proto does.
 		plain, err := sc.decodeFragment(raw)
@@ -278,6 +302,7 @@ func (t *towerTable) fillWire(frags [][]byte, lumiSlice uint32, ev *trigger.Even
 		}
 	}
 	ev.GridTowers, ev.Towers, ev.MuonHits = out, wide, hits
+	ev.Counted = ct
 	ev.LumiSlice = lumiSlice
 	return true, nil
 }
@@ -434,27 +459,6 @@ func scanFragment(b []byte) (payload []byte, kind int) {
 		}
 	}
 	return payload, kind
-}
-
-// canonicalCalo splits a CaloPayload encoding written as proto.Marshal
-// writes it (the towers packed, then the counts packed, each at most once)
-// into the two packed arrays.
-func canonicalCalo(p []byte) (towers, counts []byte, ok bool) {
-	if len(p) > 0 && p[0] == byte(caloTowers<<3|protowire.BytesType) {
-		v, n := protowire.ConsumeBytes(p[1:])
-		if n < 0 {
-			return nil, nil, false
-		}
-		towers, p = v, p[1+n:]
-	}
-	if len(p) > 0 && p[0] == byte(caloCounts<<3|protowire.BytesType) {
-		v, n := protowire.ConsumeBytes(p[1:])
-		if n < 0 {
-			return nil, nil, false
-		}
-		counts, p = v, p[1+n:]
-	}
-	return towers, counts, len(p) == 0
 }
 
 // decodeFragment reads the calorimeter payload of one Fragment encoding
@@ -663,7 +667,7 @@ func (c *caloFragment) fast(raw []byte) bool {
 				return false
 			}
 			raw = raw[n:]
-			towers, counts, ok := canonicalCalo(payload)
+			towers, counts, ok := pb.SplitCalo(payload)
 			if !ok {
 				return false
 			}

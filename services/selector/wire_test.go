@@ -36,6 +36,27 @@ func sampleEvents(tb testing.TB, n, per, muonEvery int) [][]byte {
 	if err != nil {
 		tb.Fatal(err)
 	}
+	return sampleEventsOf(tb, gen, n, per, muonEvery)
+}
+
+// samplePhysicsEvents is sampleEvents for crossings of the physics
+// generator at mu = 60 (about 980 towers each, no muon fragments).
+func samplePhysicsEvents(tb testing.TB, n, per int) [][]byte {
+	tb.Helper()
+	d := detector.DefaultDescription()
+	part, err := detector.NewPartition(d.Geometry, 16)
+	if err != nil {
+		tb.Fatal(err)
+	}
+	gen, err := detector.NewPhysicsGenerator(d, part, 9, detector.PhysicsConfig{Mu: 60, LibraryEvents: 200})
+	if err != nil {
+		tb.Fatal(err)
+	}
+	return sampleEventsOf(tb, gen, n, per, 0)
+}
+
+// sampleEventsOf is sampleEvents with the crossings of gen.
+func sampleEventsOf(tb testing.TB, gen detector.Generator, n, per, muonEvery int) [][]byte {
 	var out [][]byte
 	var c detector.Crossing
 	batch := &pb.EventBatch{Builder: 0}
@@ -121,8 +142,14 @@ func sameEvent(got *trigger.Event, want trigger.Event) bool {
 		bits := math.Float64bits
 		return a.Station == b.Station && bits(a.X) == bits(b.X) && bits(a.Y) == bits(b.Y) && bits(a.Z) == bits(b.Z)
 	}
-	return got.LumiSlice == want.LumiSlice && slices.Equal(got.Towers, want.Towers) && slices.Equal(got.GridTowers, want.GridTowers) &&
+	return got.LumiSlice == want.LumiSlice && slices.Equal(got.Towers, want.Towers) && slices.Equal(gridTowersOf(got), gridTowersOf(&want)) &&
 		slices.EqualFunc(got.MuonHits, want.MuonHits, sameHit)
+}
+
+// gridTowersOf returns ev's GridTowers followed by its counted towers as
+// GridTowers, in the event's order.
+func gridTowersOf(ev *trigger.Event) []trigger.GridTower {
+	return ev.Counted.AppendGridTowers(slices.Clone(ev.GridTowers))
 }
 
 // The wire path gives exactly FillEvent's towers and muon hits (FillEvent
@@ -150,6 +177,9 @@ func TestFillWireMatchesFillEvent(t *testing.T) {
 			if got[i] == nil {
 				t.Fatalf("event %d left to the reference path", i)
 			}
+			if len(got[i].Counted.Words) == 0 || len(got[i].GridTowers) != 0 {
+				t.Fatalf("event %d: %d counted towers, %d grid towers: the readout's layout should give words only", i, len(got[i].Counted.Words), len(got[i].GridTowers))
+			}
 			if !sameEvent(got[i], want[i]) {
 				t.Fatalf("event %d differs\n got %+v\nwant %+v", i, *got[i], want[i])
 			}
@@ -161,28 +191,34 @@ func TestFillWireMatchesFillEvent(t *testing.T) {
 	}
 }
 
+// Protobuf encodings by hand (google.golang.org/protobuf/encoding/protowire),
+// for layouts the readout does not write.
+func field(num protowire.Number, x uint64) []byte {
+	return protowire.AppendVarint(protowire.AppendTag(nil, num, protowire.VarintType), x)
+}
+
+func fixed(num protowire.Number, x float32) []byte {
+	return protowire.AppendFixed32(protowire.AppendTag(nil, num, protowire.Fixed32Type), math.Float32bits(x))
+}
+
+func bytesField(num protowire.Number, x []byte) []byte {
+	return protowire.AppendBytes(protowire.AppendTag(nil, num, protowire.BytesType), x)
+}
+
+func packed(xs ...uint64) []byte {
+	var b []byte
+	for _, x := range xs {
+		b = protowire.AppendVarint(b, x)
+	}
+	return b
+}
+
+func cat(parts ...[]byte) []byte { return slices.Concat(parts...) }
+
 // Fragment layouts other than the builder's own decode with proto's
 // meaning, or go to the reference path.
 func TestFillWireOtherLayouts(t *testing.T) {
 	g := detector.Lantern()
-	tag := protowire.AppendTag
-	field := func(num protowire.Number, x uint64) []byte {
-		return protowire.AppendVarint(tag(nil, num, protowire.VarintType), x)
-	}
-	fixed := func(num protowire.Number, x float32) []byte {
-		return protowire.AppendFixed32(tag(nil, num, protowire.Fixed32Type), math.Float32bits(x))
-	}
-	bytesField := func(num protowire.Number, x []byte) []byte {
-		return protowire.AppendBytes(tag(nil, num, protowire.BytesType), x)
-	}
-	packed := func(xs ...uint64) []byte {
-		var b []byte
-		for _, x := range xs {
-			b = protowire.AppendVarint(b, x)
-		}
-		return b
-	}
-	cat := func(parts ...[]byte) []byte { return slices.Concat(parts...) }
 	calo := cat(bytesField(1, packed(5, 300, 7, 99999)), bytesField(2, packed(4, 0, 70000)))
 	hit := cat(field(1, 2), fixed(2, -1.5), fixed(3, 1e6), fixed(4, float32(math.Copysign(0, -1))))
 	cases := map[string]struct {
@@ -233,6 +269,52 @@ func TestFillWireOtherLayouts(t *testing.T) {
 	}
 }
 
+// An event whose fragments mix the readout's layout with others keeps its
+// towers in fragment order, as FillEvent does (the features' sums depend
+// on the order): words turn into GridTowers at the first fragment the
+// words cannot take, whichever comes first.
+func TestFillWireMixedLayouts(t *testing.T) {
+	g := detector.Lantern()
+	canonical := func(towers, counts []byte) []byte {
+		return bytesField(7, cat(bytesField(1, towers), bytesField(2, counts)))
+	}
+	a := canonical(packed(300, 301, 302, 303, 304), packed(5, 6, 7, 8, 9))
+	b := canonical(packed(9000, 9001), packed(1, 2))
+	unpacked := bytesField(7, cat(field(1, 500), field(2, 3), field(1, 501), field(2, 4)))
+	wide := canonical(packed(700, 701), packed(70000, 2)) // a count beyond 16 bits
+	muon := bytesField(8, nil)
+	for name, frags := range map[string][][]byte{
+		"words only":            {a, muon, b},
+		"unpacked in between":   {a, unpacked, b},
+		"unpacked first":        {unpacked, a, b},
+		"unpacked last":         {a, b, unpacked},
+		"wide count in between": {a, wide, b},
+		"wide count first":      {wide, a},
+	} {
+		t.Run(name, func(t *testing.T) {
+			ev := cat(field(1, 1), field(5, 3))
+			for _, f := range frags {
+				ev = cat(ev, bytesField(6, f))
+			}
+			data := cat(field(1, 0), bytesField(3, ev))
+			want, ok := referenceEvents(g, data)
+			if !ok {
+				t.Fatal("proto refuses the case")
+			}
+			got, err := wireEvents(newTowerTable(g), data)
+			if err != nil || len(got) != 1 || got[0] == nil {
+				t.Fatalf("wire path: %v, %v", got, err)
+			}
+			if !sameEvent(got[0], want[0]) {
+				t.Fatalf("event differs\n got %v\nwant %v", gridTowersOf(got[0]), gridTowersOf(&want[0]))
+			}
+			if words := len(got[0].Counted.Words) > 0; words != (name == "words only") {
+				t.Fatalf("%d counted towers, %d grid towers", len(got[0].Counted.Words), len(got[0].GridTowers))
+			}
+		})
+	}
+}
+
 // The reference path's fragment decoder gives proto.Unmarshal's fragments
 // (google.golang.org/protobuf, the reference decoder), layouts other than
 // the builder's included.
@@ -249,13 +331,6 @@ func TestSlabMatchesProto(t *testing.T) {
 				frags = append(frags, raw)
 			}
 		}
-	}
-	tag := protowire.AppendTag
-	field := func(num protowire.Number, x uint64) []byte {
-		return protowire.AppendVarint(tag(nil, num, protowire.VarintType), x)
-	}
-	bytesField := func(num protowire.Number, x []byte) []byte {
-		return protowire.AppendBytes(tag(nil, num, protowire.BytesType), x)
 	}
 	calo := slices.Concat(bytesField(1, []byte{5, 6}), bytesField(2, []byte{1, 2}))
 	frags = append(frags,
@@ -541,32 +616,10 @@ func benchmarkSelectBatch(b *testing.B, muonEvery int) {
 // BenchmarkFill compares the wire path with proto.Unmarshal and FillEvent
 // on the same batches.
 func BenchmarkFill(b *testing.B) {
-	batches := sampleEvents(b, 6400, 64, 0)
 	g := detector.Lantern()
-	b.Run("wire", func(b *testing.B) {
-		tab := newTowerTable(g)
-		var we wireEvent
-		var sc wireFill
-		var ev trigger.Event
-		b.ReportAllocs()
-		events := 0
-		c0 := cpuTime()
-		for i := 0; b.Loop(); i++ {
-			_, err := walkBatch(batches[i%len(batches)], func(raw []byte) error {
-				if err := we.decode(raw); err != nil {
-					return err
-				}
-				_, err := tab.fillWire(we.frags, we.lumi, &ev, &sc)
-				events++
-				return err
-			})
-			if err != nil {
-				b.Fatal(err)
-			}
-		}
-		b.ReportMetric(float64(events)/b.Elapsed().Seconds(), "events/s")
-		b.ReportMetric(float64((cpuTime()-c0).Nanoseconds())/1e3/float64(events), "cpu-us/event")
-	})
+	b.Run("wire", func(b *testing.B) { benchmarkFillWire(b, g, sampleEvents(b, 6400, 64, 0)) })
+	b.Run("wire-mu60", func(b *testing.B) { benchmarkFillWire(b, g, samplePhysicsEvents(b, 640, 64)) })
+	batches := sampleEvents(b, 6400, 64, 0)
 	b.Run("proto", func(b *testing.B) {
 		var ev trigger.Event
 		b.ReportAllocs()
@@ -585,6 +638,32 @@ func BenchmarkFill(b *testing.B) {
 		b.ReportMetric(float64(events)/b.Elapsed().Seconds(), "events/s")
 		b.ReportMetric(float64((cpuTime()-c0).Nanoseconds())/1e3/float64(events), "cpu-us/event")
 	})
+}
+
+// benchmarkFillWire fills the events of batches on the wire path.
+func benchmarkFillWire(b *testing.B, g *detector.Geometry, batches [][]byte) {
+	tab := newTowerTable(g)
+	var we wireEvent
+	var sc wireFill
+	var ev trigger.Event
+	b.ReportAllocs()
+	events := 0
+	c0 := cpuTime()
+	for i := 0; b.Loop(); i++ {
+		_, err := walkBatch(batches[i%len(batches)], func(raw []byte) error {
+			if err := we.decode(raw); err != nil {
+				return err
+			}
+			_, err := tab.fillWire(we.frags, we.lumi, &ev, &sc)
+			events++
+			return err
+		})
+		if err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64(events)/b.Elapsed().Seconds(), "events/s")
+	b.ReportMetric(float64((cpuTime()-c0).Nanoseconds())/1e3/float64(events), "cpu-us/event")
 }
 
 // The selection fills GridTowers, which stand for Towers at the centres
@@ -614,5 +693,18 @@ func TestGridCentresAreGeometryCentres(t *testing.T) {
 	tw := ev.TowerAt(0, grid)
 	if tw.Eta != g.EtaCentre(17) || tw.Phi != g.PhiCentre(40) || tw.IEta != 17 || tw.IPhi != 40 || tw.Layer != 1 || tw.ET != 3 {
 		t.Fatalf("tower %+v", tw)
+	}
+}
+
+// FillEvent, the reference path, takes over an event the wire path filled
+// before (the selection reuses one): no counted tower of the earlier event
+// may stay in it.
+func TestFillEventClearsCountedTowers(t *testing.T) {
+	g := detector.Lantern()
+	ev := trigger.Event{Counted: trigger.CountTowers{Words: []uint32{300 | 5<<16}, Cells: newTowerTable(g).cells, GeVPerCount: g.LeastCountGeV}}
+	f := &pb.Fragment{Payload: &pb.Fragment_Calo{Calo: &pb.CaloPayload{Towers: []uint32{301}, EtCounts: []uint32{7}}}}
+	FillEvent(g, []*pb.Fragment{f}, 1, &ev)
+	if n := ev.NumTowers(); n != 1 || len(ev.GridTowers) != 1 {
+		t.Fatalf("%d towers (%d counted), want the one tower of the fragment", n, len(ev.Counted.Words))
 	}
 }

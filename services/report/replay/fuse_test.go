@@ -57,14 +57,7 @@ func recordedBatches(t *testing.T, crossings uint64) [][]byte {
 // for (the definition in the trigger.CountTowers comment), in the order
 // the selection sees them.
 func gridTowersOf(ev *trigger.Event) []trigger.GridTower {
-	out := slices.Clone(ev.GridTowers)
-	c := &ev.Counted
-	for _, w := range c.Words {
-		g := c.Cells[w&0xffff]
-		g.ET = float64(w>>16) * c.GeVPerCount
-		out = append(out, g)
-	}
-	return out
+	return ev.Counted.AppendGridTowers(slices.Clone(ev.GridTowers))
 }
 
 // equalGrid compares grid towers element by element, so that a nil and
