@@ -70,7 +70,8 @@ func NewRestamper(ds *Dataset) *Restamper {
 // payload's bytes as they are.
 type fragFields struct {
 	hdr        pb.Fragment // scalar fields only; Payload stays nil
-	payload    []byte      // the calo field's value
+	payload    []byte      // the payload field's value
+	payloadNum byte        // its field number: 7 calorimeter, 8 muon
 	hasPayload bool
 }
 
@@ -137,14 +138,13 @@ func (r *Restamper) Restamp(dst []byte, b *Batch, lap uint64) ([]byte, error) {
 // fragment appends field 5 holding fragment f moved by orbits.
 func (r *Restamper) fragment(dst, f []byte, orbits uint64) ([]byte, error) {
 	var ff fragFields
-	towers, counts, ok := r.read(f, &ff)
+	size, ok := r.read(f, &ff)
 	if !ok {
 		return r.slow(dst, f, orbits)
 	}
 	h := &ff.hdr
 	orbit := h.Orbit + orbits
 	ts := h.TimestampNs + r.clock.Nominal(orbit, h.Bcid) - r.clock.Nominal(h.Orbit, h.Bcid)
-	size := sumFixed + 8*towers + 4*max(counts-towers, 0)
 	sum := h.Checksum ^ r.crcDelta(h.Orbit^orbit, uint64(h.TimestampNs^ts), size)
 
 	n := varintField(uint64(h.SourceId)) + varintField(uint64(h.Run)) + varintField(orbit) + varintField(uint64(h.Bcid)) +
@@ -163,52 +163,92 @@ func (r *Restamper) fragment(dst, f []byte, orbits uint64) ([]byte, error) {
 	// The oneof payload last, where proto.Marshal puts it.
 	dst = appendVarint(dst, 9, uint64(sum))
 	if ff.hasPayload {
-		dst = protowire.AppendTag(dst, 7, protowire.BytesType)
+		dst = protowire.AppendTag(dst, protowire.Number(ff.payloadNum), protowire.BytesType)
 		dst = protowire.AppendBytes(dst, ff.payload)
 	}
 	return dst, nil
 }
 
 // read parses a fragment of the readout's layout: one-byte tags, known
-// varint fields, at most one calorimeter payload whose arrays are packed
-// once each. It returns the number of towers and of counts, or ok false
+// varint fields, at most one payload, either calorimeter with its arrays
+// packed once each or muon with hits only. It returns the size of the
+// fragment's canonical content (Checksummer.Sum's layout), or ok false
 // for any other layout.
-func (r *Restamper) read(f []byte, ff *fragFields) (towers, counts int, ok bool) {
+func (r *Restamper) read(f []byte, ff *fragFields) (size int, ok bool) {
+	size = sumFixed
 	for len(f) > 0 {
 		tag := f[0]
 		if tag >= 0x80 {
-			return 0, 0, false
+			return 0, false
 		}
 		f = f[1:]
 		num, typ := tag>>3, protowire.Type(tag&7)
-		if num == 7 {
+		if num == 7 || num == 8 {
 			if typ != protowire.BytesType || ff.hasPayload {
-				return 0, 0, false
+				return 0, false
 			}
 			p, n := protowire.ConsumeBytes(f)
 			if n < 0 {
-				return 0, 0, false
+				return 0, false
 			}
 			f = f[n:]
-			ff.payload, ff.hasPayload = p, true
-			if towers, counts, ok = packedCounts(p); !ok {
-				return 0, 0, false
+			ff.payload, ff.payloadNum, ff.hasPayload = p, num, true
+			if num == 8 {
+				hits, ok := muonHits(p)
+				if !ok {
+					return 0, false
+				}
+				size += 16 * hits
+				continue
 			}
+			towers, counts, ok := packedCounts(p)
+			if !ok {
+				return 0, false
+			}
+			size += 8*towers + 4*max(counts-towers, 0)
 			continue
 		}
 		if typ != protowire.VarintType {
-			return 0, 0, false
+			return 0, false
 		}
 		v, n := uvarint(f)
 		if n < 0 {
-			return 0, 0, false
+			return 0, false
 		}
 		f = f[n:]
 		if !pb.SetFragmentVarint(&ff.hdr, protowire.Number(num), v) {
-			return 0, 0, false
+			return 0, false
 		}
 	}
-	return towers, counts, true
+	return size, true
+}
+
+// muonHits returns how many hits a MuonPayload encoding holds when it has
+// nothing but hits (field 1, each occurrence one hit whatever it holds:
+// the canonical content of a hit is 16 bytes, its fields zero where
+// absent), or ok false.
+func muonHits(p []byte) (hits int, ok bool) {
+	const hitTag = 1<<3 | byte(protowire.BytesType)
+	for len(p) > 0 {
+		if p[0] != hitTag {
+			return 0, false
+		}
+		m, n := protowire.ConsumeBytes(p[1:])
+		if n < 0 {
+			return 0, false
+		}
+		// Well formed inside, as proto.Unmarshal needs it.
+		for len(m) > 0 {
+			_, _, k := protowire.ConsumeField(m)
+			if k < 0 {
+				return 0, false
+			}
+			m = m[k:]
+		}
+		p = p[1+n:]
+		hits++
+	}
+	return hits, true
 }
 
 // uvarint decodes a varint, with the short forms inline.

@@ -4,6 +4,7 @@ import (
 	"testing"
 	"time"
 
+	"google.golang.org/protobuf/encoding/protowire"
 	"google.golang.org/protobuf/proto"
 
 	"github.com/bunchsieve/bunchsieve/detector"
@@ -19,6 +20,33 @@ func TestRestampMovesTheBatch(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	checkRestamp(t, ds)
+	// The physics generator's readout, muon sectors with hits included
+	// (forced Z -> mu mu).
+	phys, err := Generate(GenerateConfig{Crossings: 64, Seed: 3, Generator: detector.GeneratorConfig{
+		Kind: detector.GeneratorPhysics, Physics: detector.PhysicsConfig{Force: "z-mumu", LibraryEvents: 20}}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	hits := 0
+	for i := range phys.Batches {
+		var b pb.FragmentBatch
+		if err := proto.Unmarshal(phys.Data(&phys.Batches[i]), &b); err != nil {
+			t.Fatal(err)
+		}
+		for _, f := range b.Fragments {
+			hits += len(f.GetMuon().GetHits())
+		}
+	}
+	if hits == 0 {
+		t.Fatal("no muon hits in the physics sample")
+	}
+	checkRestamp(t, phys)
+}
+
+// checkRestamp checks laps 1, 2 and 1000 of every batch of ds.
+func checkRestamp(t *testing.T, ds *Dataset) {
+	t.Helper()
 	r := NewRestamper(ds)
 	clock := detector.DefaultClock()
 	perLap := map[[2]uint32]uint64{}
@@ -26,6 +54,7 @@ func TestRestampMovesTheBatch(t *testing.T) {
 		perLap[[2]uint32{uint32(b.Partition), b.Source}]++
 	}
 	var buf []byte
+	var err error
 	for _, lap := range []uint64{1, 2, 1000} {
 		for i := range ds.Batches {
 			b := &ds.Batches[i]
@@ -85,9 +114,13 @@ func TestRestampOtherLayouts(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	// A fragment with a field the readout does not write (15): proto
+	// keeps it aside.
 	f := &pb.Fragment{SourceId: 1, Run: 1, Orbit: 0, Bcid: 1, TimestampNs: 25, Payload: &pb.Fragment_Muon{Muon: &pb.MuonPayload{Hits: []*pb.MuonHit{{Station: 1, XMm: 2}}}}}
 	f.Seal()
-	data, _ := proto.Marshal(&pb.FragmentBatch{SourceId: 1, Run: 1, Fragments: []*pb.Fragment{f}})
+	raw, _ := proto.Marshal(f)
+	raw = protowire.AppendVarint(protowire.AppendTag(raw[:len(raw):len(raw)], 15, protowire.VarintType), 7)
+	data := protowire.AppendBytes(protowire.AppendTag(nil, 5, protowire.BytesType), raw)
 	b := &Batch{Source: 1}
 	ds.keep(b, data, time.Now().UnixNano())
 	out, err := NewRestamper(ds).Restamp(nil, b, 2)
