@@ -208,14 +208,21 @@ func BenchmarkPhysicsMenu(b *testing.B) {
 			if grid[i] = toGridTowers(ev, g); len(grid[i].Towers) != 0 {
 				b.Fatalf("%s event %d: %d towers off their cell centres", set.name, i, len(grid[i].Towers))
 			}
-			if counted[i] = toCountTowers(ev, g, lsb); len(counted[i].Towers) != 0 {
-				b.Fatalf("%s event %d: %d towers not in least counts", set.name, i, len(counted[i].Towers))
+			// The synthetic dense sample's energies are not whole least
+			// counts, as a readout's are: it has no counted form.
+			if counted != nil {
+				if counted[i] = toCountTowers(ev, g, lsb); len(counted[i].Towers) != 0 {
+					counted = nil
+				}
 			}
 		}
 		for _, form := range []struct {
 			name string
 			evs  []*Event
 		}{{"grid", grid}, {"counted", counted}, {"towers", set.evs}} {
+			if form.evs == nil {
+				continue
+			}
 			b.Run(set.name+"/"+form.name, func(b *testing.B) {
 				var d Decision
 				b.ReportAllocs()
