@@ -79,3 +79,20 @@ var (
 	_ Generator = (*PhysicsGenerator)(nil)
 	_ Generator = (*HepMCGenerator)(nil)
 )
+
+// MeanPileUp returns the mean number of inelastic interactions per
+// crossing the selected generator models on d's filling scheme: the toy
+// generator's mu, or for the physics generator and the HepMC reader's
+// overlay the configured mu or the one the luminosity gives (PileUpMu),
+// each with its defaults, as the generators themselves take them.
+func (c GeneratorConfig) MeanPileUp(d *Description) float64 {
+	switch c.Kind {
+	case "", GeneratorSimple:
+		return c.Simple.withDefaults().Mu
+	}
+	p := c.Physics.withDefaults()
+	if p.Mu > 0 {
+		return p.Mu
+	}
+	return PileUpMu(p.Luminosity, p.SigmaInelMb, d.Filling.Colliding(), RevolutionHz)
+}

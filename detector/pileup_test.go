@@ -53,3 +53,29 @@ func TestLibraryOverlayRotatesAndMirrors(t *testing.T) {
 		}
 	}
 }
+
+// GeneratorConfig.MeanPileUp gives the mu the generators themselves use:
+// the toy generator's (default 20), and the physics generator's, set
+// directly or from the luminosity (PhysicsGenerator.Mu).
+func TestMeanPileUpIsTheGenerators(t *testing.T) {
+	d := DefaultDescription()
+	part, err := NewPartition(d.Geometry, 16)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if mu := (GeneratorConfig{}).MeanPileUp(d); mu != 20 {
+		t.Errorf("toy generator default: mu %v, want 20", mu)
+	}
+	if mu := (GeneratorConfig{Kind: GeneratorSimple, Simple: SimpleConfig{Mu: 35}, Physics: PhysicsConfig{Mu: 60}}).MeanPileUp(d); mu != 35 {
+		t.Errorf("toy generator: mu %v, want its own 35", mu)
+	}
+	for _, pc := range []PhysicsConfig{{Mu: 60, LibraryEvents: 10}, {Luminosity: 2e34, LibraryEvents: 10}, {LibraryEvents: 10}} {
+		g, err := NewPhysicsGenerator(d, part, 1, pc)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if mu := (GeneratorConfig{Kind: GeneratorPhysics, Physics: pc}).MeanPileUp(d); mu != g.Mu() {
+			t.Errorf("physics %+v: MeanPileUp %v, the generator's mu %v", pc, mu, g.Mu())
+		}
+	}
+}

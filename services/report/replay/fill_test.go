@@ -1,9 +1,12 @@
 package replay
 
 import (
+	"math"
 	"math/rand/v2"
 	"reflect"
 	"testing"
+
+	"go.yaml.in/yaml/v3"
 
 	"github.com/bunchsieve/bunchsieve/detector"
 	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
@@ -153,5 +156,48 @@ func TestGridTowersDecideAsTowers(t *testing.T) {
 	}
 	if passes == 0 {
 		t.Fatal("no rule passed on any crossing: the comparison saw nothing")
+	}
+}
+
+// A stream reports the mean pile-up of the generator that made it, read
+// from the settings `bunchsieve record` writes (the whole GeneratorConfig,
+// every kind's section included): the toy generator's mu for a toy stream,
+// not the physics section's.
+func TestStreamMuIsTheSelectedGenerators(t *testing.T) {
+	d := detector.DefaultDescription()
+	settings := func(g detector.GeneratorConfig) string {
+		text, err := yaml.Marshal(g)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return string(text)
+	}
+	both := detector.GeneratorConfig{Simple: detector.SimpleConfig{Mu: 20}, Physics: detector.PhysicsConfig{Mu: 60}}
+	simple, physics, byLumi := both, both, both
+	simple.Kind, physics.Kind = detector.GeneratorSimple, detector.GeneratorPhysics
+	byLumi.Kind, byLumi.Physics = detector.GeneratorPhysics, detector.PhysicsConfig{Luminosity: 2e34}
+	// mu = L sigma_inel / (n_b f_rev) with the physics generator's default
+	// sigma_inel (TOTEM's 79.5 mb at 13 TeV, see docs/physics-model.md) on
+	// the Lantern filling scheme's colliding bunches.
+	wantLumi := detector.PileUpMu(2e34, 79.5, d.Filling.Colliding(), detector.RevolutionHz)
+	for _, c := range []struct {
+		name, config, kind string
+		want               float64
+	}{
+		{"toy stream", settings(simple), "simple", 20},
+		{"toy stream, kind left to the header", settings(both), "simple", 20},
+		{"physics stream", settings(physics), "physics", 60},
+		{"physics stream, mu from luminosity", settings(byLumi), "physics", wantLumi},
+		{"older settings with a top-level mu", "mu: 35\n", "simple", 35},
+		{"no settings", "", "test", 0},
+		{"unreadable settings", "mu: [", "simple", 0},
+	} {
+		if got := muOf(c.config, c.kind, d); got != c.want {
+			t.Errorf("%s: mu %v, want %v", c.name, got, c.want)
+		}
+	}
+	// By hand: 2e34 cm^-2 s^-1 x 79.5e-27 cm^2 / (2400 x 11245.5 Hz) = 58.91.
+	if math.Abs(wantLumi-58.91) > 0.01 {
+		t.Fatalf("mu %v from 2e34 cm^-2 s^-1, want 58.91", wantLumi)
 	}
 }

@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"os"
+	"strings"
 
 	"go.yaml.in/yaml/v3"
 
@@ -91,20 +92,24 @@ func OpenStream(path string) (*StreamSource, error) {
 	}
 	s := &StreamSource{r: r, size: size, sample: Sample{
 		Kind: "stream", Path: path, Generator: h.Generator, GeneratorConfig: h.GeneratorConfig,
-		Seed: h.Seed, Mu: muOf(h.GeneratorConfig), Run: h.Run, Sources: append([]uint32(nil), h.SourceIds...),
+		Seed: h.Seed, Mu: muOf(h.GeneratorConfig, h.Generator, desc), Run: h.Run, Sources: append([]uint32(nil), h.SourceIds...),
 		Truth: r.HasTruth(), Description: desc,
 	}}
 	return s, nil
 }
 
-// muOf reads the pile-up from generator settings, at the top level (the
-// toy generator's) or under physics (a GeneratorConfig); 0 if absent.
-func muOf(config string) float64 {
+// muOf reads the mean pile-up from a stream's generator settings: the
+// selected generator's (GeneratorConfig.MeanPileUp, so that a toy
+// generator's stream reports its own mu, not the physics section's), or
+// a top-level mu where the settings have one; 0 when there are none or
+// they do not parse.
+func muOf(config, kind string, d *detector.Description) float64 {
+	if strings.TrimSpace(config) == "" {
+		return 0
+	}
 	var v struct {
-		Mu      float64 `yaml:"mu"`
-		Physics struct {
-			Mu float64 `yaml:"mu"`
-		} `yaml:"physics"`
+		Mu                       float64 `yaml:"mu"`
+		detector.GeneratorConfig `yaml:",inline"`
 	}
 	if yaml.Unmarshal([]byte(config), &v) != nil {
 		return 0
@@ -112,7 +117,10 @@ func muOf(config string) float64 {
 	if v.Mu > 0 {
 		return v.Mu
 	}
-	return v.Physics.Mu
+	if v.Kind == "" {
+		v.Kind = kind
+	}
+	return v.MeanPileUp(d)
 }
 
 // Sample describes the stream.
@@ -194,10 +202,7 @@ func NewGeneratorSource(cfg GeneratorConfig) (*GeneratorSource, error) {
 		kind = detector.GeneratorSimple
 	}
 	if kind == detector.GeneratorSimple {
-		mu = cfg.Generator.Simple.Mu
-		if mu == 0 {
-			mu = 20 // the toy generator's default (detector.SimpleConfig)
-		}
+		mu = cfg.Generator.MeanPileUp(d)
 	}
 	text, err := yaml.Marshal(generatorSettings(cfg.Generator, kind))
 	if err != nil {
