@@ -34,7 +34,7 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 	workers := fs.Int("workers", 0, "selection workers in the queue group (default GOMAXPROCS, or 2 with --cluster)")
 	linger := fs.Duration("linger", 0, "how long the builders let a partly filled batch of built events wait for more, at most the builders' 2 ms tick (e.g. 1ms; pays with --batch 1)")
 	rate := fs.String("rate", "", "one offered rate in crossings/s, e.g. 50000 or 50k; 0 = as fast as possible")
-	rates := fs.String("rates", "", "offered rates, comma-separated (e.g. 20k,40k,60k) or a sweep FROM:TO:STEP (e.g. 20k:120k:10k)")
+	rates := fs.String("rates", "", "offered rates, comma-separated (e.g. 20k,40k,60k) or a sweep FROM:TO:STEP (e.g. 20k:120k:10k); without --rate or --rates: "+defaultSweep)
 	duration := fs.Duration("duration", 5*time.Second, "how long each fixed-rate step offers crossings")
 	crossings := fs.Uint64("crossings", 0, "crossings of an as-fast-as-possible step and of the baselines (default: the dataset's)")
 	refine := fs.Int("refine", 0, "bisection steps between the highest passing and the lowest failing rate")
@@ -93,9 +93,15 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 			return usagef("--rate %q: %v", *rate, err)
 		}
 		offered = []float64{r}
-	} else if *rates != "" {
-		if offered, err = parseRates(*rates); err != nil {
-			return usagef("--rates %q: %v", *rates, err)
+	} else {
+		spec := *rates
+		if spec == "" {
+			// A sweep, so that the plain command finds the saturation
+			// point and has a curve to plot.
+			spec = defaultSweep
+		}
+		if offered, err = parseRates(spec); err != nil {
+			return usagef("--rates %q: %v", spec, err)
 		}
 	}
 	if *soak > 0 && offered[0] == 0 {
@@ -231,6 +237,10 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 	}
 	return errors.Join(runErr, prof.stop(), tr.stop())
 }
+
+// defaultSweep is the offered rates of a load test given neither --rate
+// nor --rates.
+const defaultSweep = "20k:200k:20k"
 
 // parseRate reads a rate in crossings/s, with an optional k or M suffix.
 func parseRate(s string) (float64, error) {
