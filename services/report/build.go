@@ -1,6 +1,7 @@
 package report
 
 import (
+	"errors"
 	"fmt"
 
 	"github.com/bunchsieve/bunchsieve/detector"
@@ -133,6 +134,14 @@ func (a *accumulator) efficiency(ef *effAcc) Efficiency {
 	}
 	fit, err := stats.FitTurnOn(bins)
 	if err != nil {
+		// The stats package does not know the unit of the reference: an
+		// undetermined parameter is restated with it.
+		var u *stats.UndeterminedError
+		if errors.As(err, &u) {
+			withUnit := *u
+			withUnit.Unit = ef.ref.unit
+			err = &withUnit
+		}
 		out.FitError = err.Error()
 	} else {
 		out.Fit = &ErfFit{X50: fit.X50, X50Err: fit.X50Err, Sigma: fit.Sigma, SigmaErr: fit.SigmaErr,

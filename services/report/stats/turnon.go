@@ -58,8 +58,45 @@ type TurnOnFit struct {
 }
 
 // ErrFitFailed is wrapped by FitTurnOn errors: too few filled bins, a fit
-// that does not converge, or a Hessian that cannot be inverted.
+// that does not converge, a Hessian that cannot be inverted, or parameters
+// that the data do not determine (an *UndeterminedError).
 var ErrFitFailed = errors.New("stats: turn-on fit failed")
+
+// UndeterminedError is the FitTurnOn error for a fit that converged but one
+// of whose parameters the data do not determine: its standard error is not
+// finite or exceeds Limit. It wraps ErrFitFailed; its fields let a caller
+// restate the reason, for example with the unit of x. Its methods are safe
+// for concurrent use.
+type UndeterminedError struct {
+	// Param names the parameter: "50% point", "width" or "plateau".
+	Param string
+	// StdErr is the parameter's standard error from the fit's covariance.
+	StdErr float64
+	// Limit is the largest error accepted: the fitted range Hi - Lo for the
+	// 50% point and the width, 1 for the plateau.
+	Limit float64
+	// Lo and Hi are the smallest and largest X of the bins with events.
+	Lo, Hi float64
+	// Unit is the unit of x, written after the numbers in the message of
+	// the 50% point and the width; empty (as FitTurnOn leaves it) writes
+	// none.
+	Unit string
+}
+
+func (e *UndeterminedError) Error() string {
+	if e.Param == "plateau" {
+		return fmt.Sprintf("%v: the plateau is not determined: its error, %.2g, exceeds %g, the whole range of an efficiency", ErrFitFailed, e.StdErr, e.Limit)
+	}
+	u := ""
+	if e.Unit != "" {
+		u = " " + e.Unit
+	}
+	return fmt.Sprintf("%v: the %s is not determined: its error, %.2g%s, exceeds the fitted range of %.4g%s (the bins with events, centred from %.4g to %.4g%s)",
+		ErrFitFailed, e.Param, e.StdErr, u, e.Limit, u, e.Lo, e.Hi, u)
+}
+
+// Unwrap returns ErrFitFailed.
+func (e *UndeterminedError) Unwrap() error { return ErrFitFailed }
 
 // FitTurnOn fits TurnOn to binned efficiency data by binned maximum
 // likelihood: each bin's Pass is binomial of Total with probability
@@ -68,7 +105,21 @@ var ErrFitFailed = errors.New("stats: turn-on fit failed")
 // the data, then takes the covariance from the inverse of the Hessian,
 // computed by central finite differences. A plateau above 1 is refitted
 // fixed at 1 (PlateauFixed). It needs at least four bins with events. The
-// fit is deterministic.
+// fit is deterministic and FitTurnOn is safe for concurrent use; it does
+// not panic.
+//
+// A fit that converges is still refused, with an *UndeterminedError, when
+// the data do not determine its parameters: when the standard error of the
+// 50% point or of the width is not finite or exceeds the fitted range (the
+// largest minus the smallest X of the bins with events), or that of a free
+// plateau exceeds 1, the whole range an efficiency can take. A one-standard-
+// error interval wider than all the data means the likelihood is flat
+// wherever the data could place the parameter, and the quadratic
+// approximation that gives the error has itself broken down (a handful of
+// passing events in one bin does that). The test is on the fit's own
+// covariance, not on counts of events or bins, so it follows the amount of
+// information: multiplying every Pass and Total by c keeps the minimum and
+// divides the covariance by c.
 func FitTurnOn(bins []EffBin) (TurnOnFit, error) {
 	var used []EffBin
 	for _, b := range bins {
@@ -96,6 +147,9 @@ func FitTurnOn(bins []EffBin) (TurnOnFit, error) {
 		}
 	}
 	if err != nil {
+		return TurnOnFit{}, err
+	}
+	if err := determined(out, used); err != nil {
 		return TurnOnFit{}, err
 	}
 	out.Bins, out.NDF = len(used), len(used)-3
@@ -166,6 +220,31 @@ func fit(used []EffBin, x0 []float64, fixPlateau bool) (TurnOnFit, error) {
 	}
 	out.X50Err, out.SigmaErr, out.PlateauErr = math.Sqrt(out.Cov[0][0]), math.Sqrt(out.Cov[1][1]), math.Sqrt(out.Cov[2][2])
 	return out, nil
+}
+
+// determined returns an *UndeterminedError for the first of the 50% point,
+// the width and a free plateau whose standard error is not finite or
+// exceeds its limit (see FitTurnOn), or nil.
+func determined(out TurnOnFit, used []EffBin) error {
+	lo, hi := math.Inf(1), math.Inf(-1)
+	for _, b := range used {
+		lo, hi = math.Min(lo, b.X), math.Max(hi, b.X)
+	}
+	type check struct {
+		param         string
+		stdErr, limit float64
+	}
+	checks := []check{{"50% point", out.X50Err, hi - lo}, {"width", out.SigmaErr, hi - lo}}
+	if !out.PlateauFixed {
+		checks = append(checks, check{"plateau", out.PlateauErr, 1})
+	}
+	for _, c := range checks {
+		// Written so that NaN fails too.
+		if !(c.stdErr <= c.limit) {
+			return &UndeterminedError{Param: c.param, StdErr: c.stdErr, Limit: c.limit, Lo: lo, Hi: hi}
+		}
+	}
+	return nil
 }
 
 // clampP keeps a probability away from 0 and 1 so the log-likelihood stays
