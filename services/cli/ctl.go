@@ -4,6 +4,7 @@ import (
 	"context"
 	"crypto/tls"
 	"crypto/x509"
+	"flag"
 	"fmt"
 	"io"
 	"os"
@@ -35,6 +36,23 @@ func (t tokenCreds) RequireTransportSecurity() bool { return t.secure }
 
 const ctlUsage = "status | configure [--run N --seed S --sources N --rate HZ --crossings N --duration D --menu FILE --set NAME] | start | stop | menu FILE [--set NAME] | prescale SET | watch [--interval D] [--count N]"
 
+// ctlNote closes the usage of every ctl action, with example the action
+// as typed: the connection flags belong to ctl itself, so they go before
+// the action.
+func ctlNote(example string) string {
+	return fmt.Sprintf("The connection flags (--addr, --token-file, --tls-ca, --timeout) go before the action, as in\n"+
+		"bunchsieve ctl --addr %s %s; see bunchsieve ctl --help.", defaultControlAddr, example)
+}
+
+// ctlCall is a ctl action with its arguments parsed, ready to be sent.
+type ctlCall struct {
+	// auth is set for the calls that change the run: they carry the token.
+	auth bool
+	// do makes a unary call; nil for watch, which streams.
+	do    func(context.Context, pb.RunControlClient) (*pb.RunStatus, error)
+	watch *watchOptions
+}
+
 func runCtl(ctx context.Context, e *env, args []string) error {
 	fs := newFlags(e, "ctl", "[flags] "+ctlUsage)
 	addr := fs.String("addr", defaultControlAddr, "`host:port` of the run-control service")
@@ -48,7 +66,12 @@ func runCtl(ctx context.Context, e *env, args []string) error {
 	if len(rest) == 0 {
 		return usagef("missing action; use bunchsieve ctl %s", ctlUsage)
 	}
-	action, rest := rest[0], rest[1:]
+	// The action's own arguments are parsed before anything is read or
+	// dialled, so that --help and mistakes never reach the server.
+	c, err := ctlAction(e, rest[0], rest[1:])
+	if err != nil {
+		return err
+	}
 	creds := insecure.NewCredentials()
 	secure := false
 	if *caFile != "" {
@@ -64,7 +87,7 @@ func runCtl(ctx context.Context, e *env, args []string) error {
 		secure = true
 	}
 	opts := []grpc.DialOption{grpc.WithTransportCredentials(creds)}
-	if action != "status" && action != "watch" {
+	if c.auth {
 		token, err := readToken(*tokenFile)
 		if err != nil {
 			return err
@@ -77,43 +100,123 @@ func runCtl(ctx context.Context, e *env, args []string) error {
 	}
 	defer conn.Close()
 	client := pb.NewRunControlClient(conn)
+	if c.watch != nil {
+		return watch(ctx, e, client, *c.watch)
+	}
 	call, cancel := context.WithTimeout(ctx, *timeout)
 	defer cancel()
-	var st *pb.RunStatus
-	switch action {
-	case "status":
-		st, err = client.Status(call, &pb.StatusRequest{}, grpc.WaitForReady(false))
-	case "start":
-		st, err = client.Start(call, &pb.StartRequest{})
-	case "stop":
-		st, err = client.Stop(call, &pb.StopRequest{})
-	case "prescale":
-		if len(rest) != 1 {
-			return usagef("ctl prescale takes one prescale set name")
-		}
-		st, err = client.SetPrescaleSet(call, &pb.SetPrescaleSetRequest{PrescaleSet: rest[0]})
-	case "menu":
-		req, err2 := menuRequest(e, rest)
-		if err2 != nil {
-			return err2
-		}
-		st, err = client.LoadMenu(call, req)
-	case "configure":
-		req, err2 := configureRequest(e, rest)
-		if err2 != nil {
-			return err2
-		}
-		st, err = client.Configure(call, req)
-	case "watch":
-		return watch(ctx, e, client, rest)
-	default:
-		return usagef("unknown action %q; use bunchsieve ctl %s", action, ctlUsage)
-	}
+	st, err := c.do(call, client)
 	if err != nil {
 		return callError(*addr, err)
 	}
 	printStatus(e.stdout, st)
 	return nil
+}
+
+// ctlAction parses the arguments of the ctl action named action. On
+// --help it prints the action's usage and returns flag.ErrHelp.
+func ctlAction(e *env, action string, args []string) (ctlCall, error) {
+	noArgs := func(about string) error {
+		return parse(newActionFlags(e, "ctl "+action, "", about, ctlNote(action)), args, 0)
+	}
+	switch action {
+	case "status":
+		if err := noArgs("Print the run's phase, run number, lumi slice, menu, prescale set and counts. Needs no token."); err != nil {
+			return ctlCall{}, err
+		}
+		return ctlCall{do: func(ctx context.Context, c pb.RunControlClient) (*pb.RunStatus, error) {
+			return c.Status(ctx, &pb.StatusRequest{}, grpc.WaitForReady(false))
+		}}, nil
+	case "start":
+		if err := noArgs("Start a run with the configured settings (see bunchsieve ctl configure --help)."); err != nil {
+			return ctlCall{}, err
+		}
+		return ctlCall{auth: true, do: func(ctx context.Context, c pb.RunControlClient) (*pb.RunStatus, error) {
+			return c.Start(ctx, &pb.StartRequest{})
+		}}, nil
+	case "stop":
+		if err := noArgs("Stop the run: offering stops and the crossings in flight drain."); err != nil {
+			return ctlCall{}, err
+		}
+		return ctlCall{auth: true, do: func(ctx context.Context, c pb.RunControlClient) (*pb.RunStatus, error) {
+			return c.Stop(ctx, &pb.StopRequest{})
+		}}, nil
+	case "prescale":
+		fs := newActionFlags(e, "ctl prescale", "SET",
+			"Switch to the menu's prescale SET: from the next lumi slice while a run flows, from the next run\n"+
+				"otherwise. Refused while draining.",
+			ctlNote("prescale SET"))
+		name, err := parseOne(fs, args, "ctl prescale takes one prescale set name")
+		if err != nil {
+			return ctlCall{}, err
+		}
+		return ctlCall{auth: true, do: func(ctx context.Context, c pb.RunControlClient) (*pb.RunStatus, error) {
+			return c.SetPrescaleSet(ctx, &pb.SetPrescaleSetRequest{PrescaleSet: name})
+		}}, nil
+	case "menu":
+		req, err := menuRequest(e, args)
+		if err != nil {
+			return ctlCall{}, err
+		}
+		return ctlCall{auth: true, do: func(ctx context.Context, c pb.RunControlClient) (*pb.RunStatus, error) {
+			return c.LoadMenu(ctx, req)
+		}}, nil
+	case "configure":
+		req, err := configureRequest(e, args)
+		if err != nil {
+			return ctlCall{}, err
+		}
+		return ctlCall{auth: true, do: func(ctx context.Context, c pb.RunControlClient) (*pb.RunStatus, error) {
+			return c.Configure(ctx, req)
+		}}, nil
+	case "watch":
+		w, err := watchFlags(e, args)
+		if err != nil {
+			return ctlCall{}, err
+		}
+		return ctlCall{watch: &w}, nil
+	default:
+		return ctlCall{}, usagef("unknown action %q; use bunchsieve ctl %s", action, ctlUsage)
+	}
+}
+
+// newActionFlags is newFlags for a subcommand of menu or ctl: the usage
+// gives the command line, what the subcommand does, its flags when it
+// has any, and a closing note (none when empty).
+func newActionFlags(e *env, name, synopsis, about, note string) *flag.FlagSet {
+	fs := newFlags(e, name, synopsis)
+	fs.Usage = func() {
+		fmt.Fprintf(e.stdout, "usage: bunchsieve %s\n\n%s\n", strings.TrimSpace(name+" "+synopsis), about)
+		hasFlags := false
+		fs.VisitAll(func(*flag.Flag) { hasFlags = true })
+		if hasFlags {
+			fmt.Fprintln(e.stdout, "\nflags:")
+			fs.SetOutput(e.stdout)
+			fs.PrintDefaults()
+			fs.SetOutput(io.Discard)
+		}
+		if note != "" {
+			fmt.Fprintf(e.stdout, "\n%s\n", note)
+		}
+	}
+	return fs
+}
+
+// parseOne parses args that hold one positional argument, with flags
+// before or after it (`ctl menu FILE --set NAME`, as the usage shows),
+// and returns that argument; missing is the usage error without it.
+func parseOne(fs *flag.FlagSet, args []string, missing string) (string, error) {
+	if err := parse(fs, args, len(args)); err != nil {
+		return "", err
+	}
+	if fs.NArg() == 0 {
+		return "", usagef("%s", missing)
+	}
+	arg := fs.Arg(0)
+	if err := parse(fs, fs.Args()[1:], 0); err != nil {
+		return "", err
+	}
+	return arg, nil
 }
 
 func callError(addr string, err error) error {
@@ -122,15 +225,16 @@ func callError(addr string, err error) error {
 }
 
 func menuRequest(e *env, args []string) (*pb.LoadMenuRequest, error) {
-	fs := newFlags(e, "ctl menu", "FILE [--set NAME]")
+	fs := newActionFlags(e, "ctl menu", "FILE [--set NAME]",
+		"Validate the menu FILE and make it the menu: from the next lumi slice while a run flows, from\n"+
+			"the next run otherwise; with its active prescale set unless --set names another.",
+		ctlNote("menu FILE"))
 	set := fs.String("set", "", "prescale set to take with the menu")
-	if err := parse(fs, args, 1); err != nil {
+	file, err := parseOne(fs, args, "ctl menu takes one menu FILE")
+	if err != nil {
 		return nil, err
 	}
-	if fs.NArg() != 1 {
-		return nil, usagef("ctl menu takes one menu FILE")
-	}
-	data, err := os.ReadFile(fs.Arg(0))
+	data, err := os.ReadFile(file)
 	if err != nil {
 		return nil, err
 	}
@@ -138,7 +242,8 @@ func menuRequest(e *env, args []string) (*pb.LoadMenuRequest, error) {
 }
 
 func configureRequest(e *env, args []string) (*pb.ConfigureRequest, error) {
-	fs := newFlags(e, "ctl configure", "[flags]")
+	fs := newActionFlags(e, "ctl configure", "[flags]",
+		"Set what the next run takes; a flag left out keeps the server's setting.", ctlNote("configure --rate 5000"))
 	run := fs.Uint("run", 0, "run number (0 keeps the server's)")
 	seed := fs.Uint64("seed", 0, "generator seed (0 keeps the server's)")
 	sources := fs.Uint("sources", 0, "calorimeter sources (0 keeps the server's)")
@@ -171,7 +276,7 @@ func phaseName(p pb.RunPhase) string {
 
 func printStatus(w io.Writer, st *pb.RunStatus) {
 	fmt.Fprintf(w, "phase %s  run %d  lumi slice %d  menu %s (%s)  prescale set %s\n",
-		phaseName(st.Phase), st.Run, st.LumiSlice, st.MenuName, st.MenuHash, st.PrescaleSet)
+		phaseName(st.Phase), st.Run, st.LumiSlice, st.MenuName, st.MenuHash, prescaleSetLabel(st))
 	if st.PendingMenuHash != "" || st.PendingPrescaleSet != "" {
 		fmt.Fprintf(w, "waiting for the next lumi slice: menu %s prescale set %s\n", orDash(st.PendingMenuHash), orDash(st.PendingPrescaleSet))
 	}
@@ -181,6 +286,19 @@ func printStatus(w io.Writer, st *pb.RunStatus) {
 	}
 }
 
+// prescaleSetLabel names the prescale set of st. Between runs the server
+// reports none when the next run will take the menu's active set, whose
+// name only the menu knows.
+func prescaleSetLabel(st *pb.RunStatus) string {
+	switch {
+	case st.PrescaleSet != "":
+		return st.PrescaleSet
+	case st.MenuHash != "":
+		return "(menu default)"
+	}
+	return "-"
+}
+
 func orDash(s string) string {
 	if s == "" {
 		return "-"
@@ -188,21 +306,34 @@ func orDash(s string) string {
 	return s
 }
 
-func watch(ctx context.Context, e *env, client pb.RunControlClient, args []string) error {
-	fs := newFlags(e, "ctl watch", "[--interval D] [--count N]")
+// watchOptions are the arguments of ctl watch.
+type watchOptions struct {
+	every time.Duration
+	count int
+}
+
+func watchFlags(e *env, args []string) (watchOptions, error) {
+	fs := newActionFlags(e, "ctl watch", "[--interval D] [--count N]",
+		"Print the accept rate and every rule's pass and accept rates at each interval, until\n"+
+			"interrupted or --count updates. Needs no token.",
+		ctlNote("watch"))
 	every := fs.Duration("interval", time.Second, "time between updates")
 	count := fs.Int("count", 0, "stop after N updates (0: until interrupted)")
 	if err := parse(fs, args, 0); err != nil {
-		return err
+		return watchOptions{}, err
 	}
 	if *every < 50*time.Millisecond {
-		return usagef("--interval %v: want at least 50ms", *every)
+		return watchOptions{}, usagef("--interval %v: want at least 50ms", *every)
 	}
-	stream, err := client.WatchRates(ctx, &pb.WatchRatesRequest{IntervalMs: uint32(every.Milliseconds())})
+	return watchOptions{every: *every, count: *count}, nil
+}
+
+func watch(ctx context.Context, e *env, client pb.RunControlClient, w watchOptions) error {
+	stream, err := client.WatchRates(ctx, &pb.WatchRatesRequest{IntervalMs: uint32(w.every.Milliseconds())})
 	if err != nil {
 		return callError("run control", err)
 	}
-	for n := 0; *count == 0 || n < *count; n++ {
+	for n := 0; w.count == 0 || n < w.count; n++ {
 		up, err := stream.Recv()
 		if err != nil {
 			if ctx.Err() != nil {

@@ -144,10 +144,18 @@ func runReplay(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 	took, cpu := time.Since(began), usage.Process().Sub(beganCPU)
-	fmt.Fprintf(e.stdout, "\nwrote %s, %s, %s and %d plots (PNG and SVG) to %s\n",
-		rpt.JSONFile, rpt.CSVFile, rpt.ROOTFile, len(rep.PlotFiles()), *out)
+	fmt.Fprintf(e.stdout, "\nwrote %s, %s, %s and %s (PNG and SVG) to %s\n",
+		rpt.JSONFile, rpt.CSVFile, rpt.ROOTFile, plots(len(rep.PlotFiles())), *out)
 	fmt.Fprintln(e.stdout, throughputLine(rep.Processing.Crossings, took, cpu, given["generate"]))
 	return runErr
+}
+
+// plots counts the plots written, in the singular for one.
+func plots(n int) string {
+	if n == 1 {
+		return "1 plot"
+	}
+	return fmt.Sprintf("%d plots", n)
 }
 
 // throughputLine says how fast a replay went: events over the wall time

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"io"
 	"math"
 	"net"
 	"net/http"
@@ -146,7 +147,8 @@ func runReadout(ctx context.Context, e *env, args []string) error {
 	runErr := emu.Run(ctx)
 	fmt.Fprintf(e.stdout, "readout: %d crossings, %d fragments published\n", emu.Offered(), emu.FragmentsSent())
 	if inj := emu.Injected(); inj != (emulator.InjectedCounts{}) {
-		fmt.Fprintf(e.stdout, "readout: injected %+v\n", inj)
+		fmt.Fprintf(e.stdout, "readout: faults injected in fragments: %d dropped, %d duplicated, %d corrupted, %d delayed, %d reordered, %d stalled\n",
+			inj.Dropped, inj.Duplicated, inj.Corrupted, inj.Delayed, inj.Reordered, inj.Stalled)
 	}
 	s := &summary.Summary{Run: cfg.Run, Seed: cfg.Seed, Sources: len(sources), DurationS: time.Since(start).Seconds(), Crossings: emu.Offered()}
 	if rf.summary != "" {
@@ -260,10 +262,36 @@ func runBuild(ctx context.Context, e *env, args []string) error {
 		Transport: summary.Transport{FragmentBatchesDropped: asm.DroppedMessages(), FragmentBatchesUndecodable: asm.UndecodableMessages()},
 		Latency:   summary.Latency{BuildP50S: asm.Latency.Quantile(0.5).Seconds(), BuildP99S: asm.Latency.Quantile(0.99).Seconds()},
 	}
-	if err := finish(e, rf.summary, s); err != nil {
-		return err
+	printBuildSummary(e.stdout, s)
+	if rf.summary != "" {
+		if err := s.WriteJSON(rf.summary); err != nil {
+			return err
+		}
 	}
 	return runErr
+}
+
+// printBuildSummary is Summary.Print for the builder alone, which has no
+// seed, offered crossings, decisions or menu to show: it prints what the
+// builder counted.
+func printBuildSummary(w io.Writer, s *summary.Summary) {
+	rate := 0.0
+	if s.DurationS > 0 {
+		rate = float64(s.EventsBuilt) / s.DurationS
+	}
+	fmt.Fprintf(w, "run %d  %d sources  %.2f s\n", s.Run, s.Sources, s.DurationS)
+	fmt.Fprintf(w, "built %d (%.0f/s; complete %d, incomplete %d)\n", s.EventsBuilt, rate, s.EventsComplete, s.EventsIncomplete)
+	f := s.Fragments
+	closed := "closed"
+	if !f.Closed() {
+		closed = "NOT CLOSED"
+	}
+	fmt.Fprintf(w, "fragments received %d = in events %d + duplicate %d + late %d + malformed %d + unknown source %d + out of time %d (%s)\n",
+		f.Received, f.InEvents, f.Duplicate, f.Late, f.Malformed, f.UnknownSource, f.OutOfTime, closed)
+	if t := s.Transport; t.FragmentBatchesDropped != 0 || t.FragmentBatchesUndecodable != 0 {
+		fmt.Fprintf(w, "transport losses: fragment batches dropped %d, undecodable %d\n", t.FragmentBatchesDropped, t.FragmentBatchesUndecodable)
+	}
+	fmt.Fprintf(w, "latency: build p50 %.2fms p99 %.2fms\n", s.Latency.BuildP50S*1e3, s.Latency.BuildP99S*1e3)
 }
 
 func runSelect(ctx context.Context, e *env, args []string) error {
