@@ -281,13 +281,7 @@ func printBuildSummary(w io.Writer, s *summary.Summary) {
 	}
 	fmt.Fprintf(w, "run %d  %d sources  %.2f s\n", s.Run, s.Sources, s.DurationS)
 	fmt.Fprintf(w, "built %d (%.0f/s; complete %d, incomplete %d)\n", s.EventsBuilt, rate, s.EventsComplete, s.EventsIncomplete)
-	f := s.Fragments
-	closed := "closed"
-	if !f.Closed() {
-		closed = "NOT CLOSED"
-	}
-	fmt.Fprintf(w, "fragments received %d = in events %d + duplicate %d + late %d + malformed %d + unknown source %d + out of time %d (%s)\n",
-		f.Received, f.InEvents, f.Duplicate, f.Late, f.Malformed, f.UnknownSource, f.OutOfTime, closed)
+	fmt.Fprintln(w, s.Fragments)
 	if t := s.Transport; t.FragmentBatchesDropped != 0 || t.FragmentBatchesUndecodable != 0 {
 		fmt.Fprintf(w, "transport losses: fragment batches dropped %d, undecodable %d\n", t.FragmentBatchesDropped, t.FragmentBatchesUndecodable)
 	}

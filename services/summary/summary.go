@@ -48,6 +48,17 @@ func (f Fragments) Closed() bool {
 	return f.Received == f.InEvents+f.Duplicate+f.Late+f.Malformed+f.UnknownSource+f.OutOfTime
 }
 
+// String is the summaries' fragment line: the received count as the sum
+// of its parts, and whether the account closes.
+func (f Fragments) String() string {
+	closed := "closed"
+	if !f.Closed() {
+		closed = "NOT CLOSED"
+	}
+	return fmt.Sprintf("fragments received %d = in events %d + duplicate %d + late %d + malformed %d + unknown source %d + out of time %d (%s)",
+		f.Received, f.InEvents, f.Duplicate, f.Late, f.Malformed, f.UnknownSource, f.OutOfTime, closed)
+}
+
 // Transport counts what NATS dropped or could not be decoded: messages that
 // never reached the builder or the selection.
 type Transport struct {
@@ -98,13 +109,7 @@ func (s *Summary) Print(w io.Writer) {
 	fmt.Fprintf(w, "run %d  seed %d  %d sources  %.2f s\n", s.Run, s.Seed, s.Sources, s.DurationS)
 	fmt.Fprintf(w, "crossings %d (%.0f/s)  built %d (complete %d, incomplete %d)  decided %d  accepted %d (%.1f/s)\n",
 		s.Crossings, rate(s.Crossings), s.EventsBuilt, s.EventsComplete, s.EventsIncomplete, s.EventsDecided, s.Accepted, rate(s.Accepted))
-	f := s.Fragments
-	closed := "closed"
-	if !f.Closed() {
-		closed = "NOT CLOSED"
-	}
-	fmt.Fprintf(w, "fragments received %d = in events %d + duplicate %d + late %d + malformed %d + unknown source %d + out of time %d (%s)\n",
-		f.Received, f.InEvents, f.Duplicate, f.Late, f.Malformed, f.UnknownSource, f.OutOfTime, closed)
+	fmt.Fprintln(w, s.Fragments)
 	t := s.Transport
 	if t != (Transport{}) {
 		fmt.Fprintf(w, "transport losses: fragment batches dropped %d, event batches dropped %d, undecodable %d+%d\n",
