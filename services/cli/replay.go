@@ -2,6 +2,7 @@ package cli
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"io"
 	"io/fs"
@@ -131,6 +132,11 @@ func runReplay(ctx context.Context, e *env, args []string) error {
 		bar.Done(rep.Processing.Crossings)
 	}
 	if rep == nil {
+		if errors.Is(runErr, rpt.ErrBadSpec) {
+			// A --scan or --efficiency naming what the menu lacks is a
+			// mistake in the flags, found before anything was replayed.
+			return usagef("%v", runErr)
+		}
 		return runErr
 	}
 	err = rep.WriteFiles(*out)

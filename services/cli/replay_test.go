@@ -99,9 +99,9 @@ func TestReplayBadFlags(t *testing.T) {
 		}
 	}
 	// A scan of a rule the menu does not have fails at the start, in one
-	// line, after the flags are read.
+	// line and with the status of a usage error, after the flags are read.
 	code, _, stderr := runCLI(t, 30*time.Second, "replay", "--out", out, "--generate", "10", "--scan", "nope:t1=1:2:1")
-	if code == 0 || strings.Count(strings.TrimRight(stderr, "\n"), "\n") != 0 || !strings.Contains(stderr, "unknown rule \"nope\"") {
+	if code != 2 || strings.Count(strings.TrimRight(stderr, "\n"), "\n") != 0 || !strings.Contains(stderr, "unknown rule \"nope\"") {
 		t.Errorf("unknown rule: exit %d, %q", code, stderr)
 	}
 }

@@ -39,7 +39,7 @@ func (r *Report) WriteTable(w io.Writer) error {
 	fmt.Fprintf(&b, "menu %s (hash %s), prescale set %s\n", r.Menu.Name, r.Menu.Hash, r.Menu.PrescaleSet)
 	mu := "unknown"
 	if s.Mu > 0 {
-		mu = fmt.Sprintf("%g", s.Mu)
+		mu = fmt.Sprintf("%.3g", s.Mu)
 	}
 	fmt.Fprintf(&b, "sample: %s; %d crossings, mu %s, %d sources", src, r.Processing.Crossings, mu, s.Sources)
 	if s.Weighted {
