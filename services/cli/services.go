@@ -53,8 +53,8 @@ func newRegistry() *prometheus.Registry {
 	return reg
 }
 
-func finish(e *env, path string, s *summary.Summary) error {
-	s.Print(e.stdout)
+func finish(e *env, path string, s *summary.Summary, print func(io.Writer)) error {
+	print(e.stdout)
 	if path != "" {
 		return s.WriteJSON(path)
 	}
@@ -262,30 +262,10 @@ func runBuild(ctx context.Context, e *env, args []string) error {
 		Transport: summary.Transport{FragmentBatchesDropped: asm.DroppedMessages(), FragmentBatchesUndecodable: asm.UndecodableMessages()},
 		Latency:   summary.Latency{BuildP50S: asm.Latency.Quantile(0.5).Seconds(), BuildP99S: asm.Latency.Quantile(0.99).Seconds()},
 	}
-	printBuildSummary(e.stdout, s)
-	if rf.summary != "" {
-		if err := s.WriteJSON(rf.summary); err != nil {
-			return err
-		}
+	if err := finish(e, rf.summary, s, s.PrintBuild); err != nil {
+		return err
 	}
 	return runErr
-}
-
-// printBuildSummary is Summary.Print for the builder alone, which has no
-// seed, offered crossings, decisions or menu to show: it prints what the
-// builder counted.
-func printBuildSummary(w io.Writer, s *summary.Summary) {
-	rate := 0.0
-	if s.DurationS > 0 {
-		rate = float64(s.EventsBuilt) / s.DurationS
-	}
-	fmt.Fprintf(w, "run %d  %d sources  %.2f s\n", s.Run, s.Sources, s.DurationS)
-	fmt.Fprintf(w, "built %d (%.0f/s; complete %d, incomplete %d)\n", s.EventsBuilt, rate, s.EventsComplete, s.EventsIncomplete)
-	fmt.Fprintln(w, s.Fragments)
-	if t := s.Transport; t.FragmentBatchesDropped != 0 || t.FragmentBatchesUndecodable != 0 {
-		fmt.Fprintf(w, "transport losses: fragment batches dropped %d, undecodable %d\n", t.FragmentBatchesDropped, t.FragmentBatchesUndecodable)
-	}
-	fmt.Fprintf(w, "latency: build p50 %.2fms p99 %.2fms\n", s.Latency.BuildP50S*1e3, s.Latency.BuildP99S*1e3)
 }
 
 func runSelect(ctx context.Context, e *env, args []string) error {
@@ -344,7 +324,7 @@ func runSelect(ctx context.Context, e *env, args []string) error {
 	for _, rc := range sel.Counts() {
 		s.Rules = append(s.Rules, summary.Rule{Name: rc.Name, Prescale: rc.Prescale, Passed: rc.Passed, Accepted: rc.Kept})
 	}
-	if err := finish(e, rf.summary, s); err != nil {
+	if err := finish(e, rf.summary, s, s.PrintSelection); err != nil {
 		return err
 	}
 	return runErr

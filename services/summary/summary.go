@@ -100,12 +100,7 @@ func (s *Summary) WriteJSON(path string) error {
 
 // Print writes a human-readable summary.
 func (s *Summary) Print(w io.Writer) {
-	rate := func(n uint64) float64 {
-		if s.DurationS <= 0 {
-			return 0
-		}
-		return float64(n) / s.DurationS
-	}
+	rate := s.rate
 	fmt.Fprintf(w, "run %d  seed %d  %d sources  %.2f s\n", s.Run, s.Seed, s.Sources, s.DurationS)
 	fmt.Fprintf(w, "crossings %d (%.0f/s)  built %d (complete %d, incomplete %d)  decided %d  accepted %d (%.1f/s)\n",
 		s.Crossings, rate(s.Crossings), s.EventsBuilt, s.EventsComplete, s.EventsIncomplete, s.EventsDecided, s.Accepted, rate(s.Accepted))
@@ -117,11 +112,49 @@ func (s *Summary) Print(w io.Writer) {
 	}
 	fmt.Fprintf(w, "latency: build p50 %s p99 %s; end to end p50 %s p99 %s max %s\n",
 		ms(s.Latency.BuildP50S), ms(s.Latency.BuildP99S), ms(s.Latency.EndToEndP50S), ms(s.Latency.EndToEndP99S), ms(s.Latency.EndToEndMaxS))
+	s.printMenu(w)
+}
+
+// PrintBuild is Print for a builder alone, which has no seed, offered
+// crossings, decisions or menu to show: what the builder counted.
+func (s *Summary) PrintBuild(w io.Writer) {
+	fmt.Fprintf(w, "run %d  %d sources  %.2f s\n", s.Run, s.Sources, s.DurationS)
+	fmt.Fprintf(w, "built %d (%.0f/s; complete %d, incomplete %d)\n", s.EventsBuilt, s.rate(s.EventsBuilt), s.EventsComplete, s.EventsIncomplete)
+	fmt.Fprintln(w, s.Fragments)
+	if t := s.Transport; t.FragmentBatchesDropped != 0 || t.FragmentBatchesUndecodable != 0 {
+		fmt.Fprintf(w, "transport losses: fragment batches dropped %d, undecodable %d\n", t.FragmentBatchesDropped, t.FragmentBatchesUndecodable)
+	}
+	fmt.Fprintf(w, "latency: build p50 %s p99 %s\n", ms(s.Latency.BuildP50S), ms(s.Latency.BuildP99S))
+}
+
+// PrintSelection is Print for a selection worker alone, which has no
+// crossings, fragments or building to show: its decisions, what NATS lost
+// of its event batches, its end-to-end latency and the menu's rules.
+func (s *Summary) PrintSelection(w io.Writer) {
+	fmt.Fprintf(w, "run %d  %.2f s\n", s.Run, s.DurationS)
+	fmt.Fprintf(w, "decided %d (%.0f/s)  accepted %d (%.1f/s)\n", s.EventsDecided, s.rate(s.EventsDecided), s.Accepted, s.rate(s.Accepted))
+	if t := s.Transport; t.EventBatchesDropped != 0 || t.EventBatchesUndecodable != 0 {
+		fmt.Fprintf(w, "transport losses: event batches dropped %d, undecodable %d\n", t.EventBatchesDropped, t.EventBatchesUndecodable)
+	}
+	fmt.Fprintf(w, "latency: end to end p50 %s p99 %s max %s\n", ms(s.Latency.EndToEndP50S), ms(s.Latency.EndToEndP99S), ms(s.Latency.EndToEndMaxS))
+	s.printMenu(w)
+}
+
+// rate is n per second of the summary's duration.
+func (s *Summary) rate(n uint64) float64 {
+	if s.DurationS <= 0 {
+		return 0
+	}
+	return float64(n) / s.DurationS
+}
+
+// printMenu writes the menu line and the table of rules.
+func (s *Summary) printMenu(w io.Writer) {
 	fmt.Fprintf(w, "menu %s (%s), prescale set %s\n", s.Menu, s.MenuHash, s.PrescaleSet)
 	tw := tabwriter.NewWriter(w, 2, 0, 2, ' ', tabwriter.AlignRight)
 	fmt.Fprintln(tw, "rule\tprescale\tpassed\taccepted\taccepted/s\t")
 	for _, r := range s.Rules {
-		fmt.Fprintf(tw, "%s\t%d\t%d\t%d\t%.1f\t\n", r.Name, r.Prescale, r.Passed, r.Accepted, rate(r.Accepted))
+		fmt.Fprintf(tw, "%s\t%d\t%d\t%d\t%.1f\t\n", r.Name, r.Prescale, r.Passed, r.Accepted, s.rate(r.Accepted))
 	}
 	tw.Flush()
 }
