@@ -30,18 +30,8 @@ type Checksummer struct {
 // y, z as IEEE-754 float32 bits). The checksum field itself is not
 // covered. See docs/wire-format.md.
 func (c *Checksummer) Sum(f *Fragment) uint32 {
-	if c.buf == nil {
-		c.buf = make([]byte, checksumBuf)
-	}
 	le := binary.LittleEndian
-	buf := c.buf
-	le.PutUint32(buf[0:], f.GetSourceId())
-	le.PutUint32(buf[4:], f.GetRun())
-	le.PutUint64(buf[8:], f.GetOrbit())
-	le.PutUint32(buf[16:], f.GetBcid())
-	le.PutUint64(buf[20:], uint64(f.GetTimestampNs()))
-	le.PutUint32(buf[28:], f.GetStatus())
-	n := 32
+	buf, n := c.header(f)
 	var sum uint32
 	switch p := f.GetPayload().(type) {
 	case *Fragment_Calo:
@@ -80,6 +70,24 @@ func (c *Checksummer) Sum(f *Fragment) uint32 {
 		}
 	}
 	return crc32.Update(sum, castagnoli, buf[:n])
+}
+
+// header writes f's header fields into the scratch as the canonical
+// content begins, allocating the scratch on first use, and returns the
+// scratch and the bytes written.
+func (c *Checksummer) header(f *Fragment) ([]byte, int) {
+	if c.buf == nil {
+		c.buf = make([]byte, checksumBuf)
+	}
+	le := binary.LittleEndian
+	buf := c.buf
+	le.PutUint32(buf[0:], f.GetSourceId())
+	le.PutUint32(buf[4:], f.GetRun())
+	le.PutUint64(buf[8:], f.GetOrbit())
+	le.PutUint32(buf[16:], f.GetBcid())
+	le.PutUint64(buf[20:], uint64(f.GetTimestampNs()))
+	le.PutUint32(buf[28:], f.GetStatus())
+	return buf, 32
 }
 
 var checksummers = sync.Pool{New: func() any { return new(Checksummer) }}

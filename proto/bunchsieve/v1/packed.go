@@ -29,18 +29,7 @@ import (
 // then decodes the payload and uses Sum.
 func (c *Checksummer) SumPacked(f *Fragment, towers, counts []byte, ncells int, words []uint32) (sum uint32, out []uint32, ok bool) {
 	le := binary.LittleEndian
-	if c.buf == nil {
-		c.buf = make([]byte, checksumBuf)
-	}
-	buf := c.buf
-	// The header as Sum lays it out.
-	le.PutUint32(buf[0:], f.GetSourceId())
-	le.PutUint32(buf[4:], f.GetRun())
-	le.PutUint64(buf[8:], f.GetOrbit())
-	le.PutUint32(buf[16:], f.GetBcid())
-	le.PutUint64(buf[20:], uint64(f.GetTimestampNs()))
-	le.PutUint32(buf[28:], f.GetStatus())
-	n := 32
+	buf, n := c.header(f)
 
 	// Every value takes at least a byte, so the shorter list's length
 	// bounds the number of pairs.
