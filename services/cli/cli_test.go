@@ -12,6 +12,8 @@ import (
 	"testing"
 	"time"
 
+	"github.com/nats-io/nats-server/v2/server"
+
 	"github.com/bunchsieve/bunchsieve/services/summary"
 	"github.com/bunchsieve/bunchsieve/services/transport"
 )
@@ -68,13 +70,8 @@ func TestSeparateServicesMatchUp(t *testing.T) {
 func separateServices(t *testing.T, up summary.Summary, crossings, seed string, workers int) {
 	dir := t.TempDir()
 
-	srv, err := transport.Embedded("127.0.0.1", -1)
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
-	url := srv.ClientURL()
-	base := srv.NumSubscriptions()
+	srv := newTestServer(t)
+	url := srv.url
 
 	var wg sync.WaitGroup
 	results := map[string]int{}
@@ -106,13 +103,7 @@ func separateServices(t *testing.T, up summary.Summary, crossings, seed string, 
 	if workers > 1 {
 		subs = uint32(1 + 3*workers)
 	}
-	deadline := time.Now().Add(10 * time.Second)
-	for srv.NumSubscriptions() < base+subs {
-		if time.Now().After(deadline) {
-			t.Fatal("builder and selection did not subscribe")
-		}
-		time.Sleep(5 * time.Millisecond)
-	}
+	srv.awaitSubscriptions(subs, "builder and selection")
 	start("readout", "readout", "--nats", url, "--crossings", crossings, "--seed", seed, "--rate", "0")
 	wg.Wait()
 	if t.Failed() {
@@ -213,17 +204,45 @@ func TestHelpAndVersion(t *testing.T) {
 	}
 }
 
-// startChain starts select and build against a fresh in-process server and
-// returns its URL and a wait function giving their summaries.
-func startChain(t *testing.T, dir string) (url string, wait func() (sel, build summary.Summary)) {
+// testServer is an embedded NATS server for one test, shut down at its
+// end, with a way to wait until the services under test have subscribed
+// (core NATS delivers only to subscriptions that exist).
+type testServer struct {
+	t    *testing.T
+	srv  *server.Server
+	url  string
+	base uint32
+}
+
+func newTestServer(t *testing.T) *testServer {
 	t.Helper()
 	srv, err := transport.Embedded("127.0.0.1", -1)
 	if err != nil {
 		t.Fatal(err)
 	}
 	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
-	url = srv.ClientURL()
-	base := srv.NumSubscriptions()
+	return &testServer{t: t, srv: srv, url: srv.ClientURL(), base: srv.NumSubscriptions()}
+}
+
+// awaitSubscriptions waits up to 10 s until n subscriptions more than at
+// the start exist; who names the subscribers in the failure.
+func (s *testServer) awaitSubscriptions(n uint32, who string) {
+	s.t.Helper()
+	deadline := time.Now().Add(10 * time.Second)
+	for s.srv.NumSubscriptions() < s.base+n {
+		if time.Now().After(deadline) {
+			s.t.Fatalf("%s did not subscribe", who)
+		}
+		time.Sleep(5 * time.Millisecond)
+	}
+}
+
+// startChain starts select and build against a fresh in-process server and
+// returns its URL and a wait function giving their summaries.
+func startChain(t *testing.T, dir string) (url string, wait func() (sel, build summary.Summary)) {
+	t.Helper()
+	srv := newTestServer(t)
+	url = srv.url
 	selJSON, buildJSON := filepath.Join(dir, "select.json"), filepath.Join(dir, "build.json")
 	var wg sync.WaitGroup
 	for _, args := range [][]string{
@@ -238,13 +257,7 @@ func startChain(t *testing.T, dir string) (url string, wait func() (sel, build s
 			}
 		}()
 	}
-	deadline := time.Now().Add(10 * time.Second)
-	for srv.NumSubscriptions() < base+2 {
-		if time.Now().After(deadline) {
-			t.Fatal("builder and selection did not subscribe")
-		}
-		time.Sleep(5 * time.Millisecond)
-	}
+	srv.awaitSubscriptions(2, "builder and selection")
 	return url, func() (summary.Summary, summary.Summary) {
 		wg.Wait()
 		if t.Failed() {

@@ -10,7 +10,6 @@ import (
 	"time"
 
 	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
-	"github.com/bunchsieve/bunchsieve/services/transport"
 )
 
 // Between runs the server reports no prescale set when the next run takes
@@ -36,13 +35,8 @@ func TestStatusPrescaleSetLabel(t *testing.T) {
 // builder's summary shows what the builder counted and no seed or menu,
 // which it does not have.
 func TestReadoutFaultsAndBuildSummary(t *testing.T) {
-	srv, err := transport.Embedded("127.0.0.1", -1)
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
-	url := srv.ClientURL()
-	base := srv.NumSubscriptions()
+	srv := newTestServer(t)
+	url := srv.url
 	type result struct {
 		code           int
 		stdout, stderr string
@@ -52,13 +46,7 @@ func TestReadoutFaultsAndBuildSummary(t *testing.T) {
 		code, stdout, stderr := runCLI(t, time.Minute, "build", "--nats", url)
 		built <- result{code, stdout, stderr}
 	}()
-	deadline := time.Now().Add(10 * time.Second)
-	for srv.NumSubscriptions() < base+1 {
-		if time.Now().After(deadline) {
-			t.Fatal("builder did not subscribe")
-		}
-		time.Sleep(5 * time.Millisecond)
-	}
+	srv.awaitSubscriptions(1, "builder")
 	code, stdout, stderr := runCLI(t, time.Minute, "readout", "--nats", url, "--crossings", "640", "--rate", "0", "--fault", "drop=0.1")
 	if code != 0 {
 		t.Fatalf("readout: exit %d: %s", code, stderr)

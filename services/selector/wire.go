@@ -275,8 +275,7 @@ func (t *towerTable) fillWire(frags [][]byte, lumiSlice uint32, ev *trigger.Even
 						ct.Words = more
 						continue
 					}
-				}
-				if counted {
+					// A count the words cannot hold, or a bad list.
 					out, ct.Words, counted = ct.AppendGridTowers(out), ct.Words[:0], false
 				}
 				if out, wide, ok = t.appendPairs(out, wide, towers, counts); ok {
