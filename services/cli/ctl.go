@@ -227,7 +227,8 @@ func callError(addr string, err error) error {
 func menuRequest(e *env, args []string) (*pb.LoadMenuRequest, error) {
 	fs := newActionFlags(e, "ctl menu", "FILE [--set NAME]",
 		"Validate the menu FILE and make it the menu: from the next lumi slice while a run flows, from\n"+
-			"the next run otherwise; with its active prescale set unless --set names another.",
+			"the next run otherwise. Without --set, a prescale set chosen earlier (ctl prescale, configure\n"+
+			"or an earlier ctl menu --set) stays in force if FILE has it; else FILE's active set is taken.",
 		ctlNote("menu FILE"))
 	set := fs.String("set", "", "prescale set to take with the menu")
 	file, err := parseOne(fs, args, "ctl menu takes one menu FILE")

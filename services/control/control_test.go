@@ -190,7 +190,7 @@ func TestRunControlOverGRPC(t *testing.T) {
 	}
 
 	// Load a new menu (a tighter MET rule): validated, then it takes over
-	// at the next lumi slice boundary.
+	// at the next lumi slice boundary, in the set the operator chose.
 	data, _ := fs.ReadFile(examples.FS, examples.StarterMenu)
 	next := strings.Replace(string(data), "met > 120 GeV", "met > 150 GeV", 1)
 	_, err = c.LoadMenu(ctx, &pb.LoadMenuRequest{Menu: "menu: x\nversion: 1\nrules:\n  r: {when: \"met > 1 m\"}\n"})
@@ -204,6 +204,9 @@ func TestRunControlOverGRPC(t *testing.T) {
 		}
 		time.Sleep(20 * time.Millisecond)
 		st, _ = c.Status(ctx, &pb.StatusRequest{})
+	}
+	if st.PrescaleSet != "quiet" {
+		t.Fatalf("the new menu took set %q, want the chosen %q", st.PrescaleSet, "quiet")
 	}
 
 	// Stop drains, then the run is over and the run number moves on.

@@ -242,12 +242,18 @@ func (c *Controller) Wait(ctx context.Context) error {
 
 // LoadMenu validates a menu and makes it the menu: from the next lumi slice
 // when flowing, from the next run otherwise. Not allowed while draining.
+// With prescaleSet empty a set the operator chose stays in force when the
+// new menu has a set of that name (a revised menu must not undo the rates
+// an operator chose); otherwise the new menu's active set is taken.
 func (c *Controller) LoadMenu(m *trigger.Menu, prescaleSet string) error {
 	if err := checkSet(m, prescaleSet); err != nil {
 		return err
 	}
 	c.mu.Lock()
 	defer c.mu.Unlock()
+	if prescaleSet == "" {
+		prescaleSet = c.keptSet(m)
+	}
 	switch c.phase {
 	case Flowing:
 		if err := c.chain.Selector().LoadMenu(m, prescaleSet); err != nil {
@@ -262,6 +268,19 @@ func (c *Controller) LoadMenu(m *trigger.Menu, prescaleSet string) error {
 		c.phase = Ready
 	}
 	return nil
+}
+
+// keptSet returns the set LoadMenu takes for m when none is named: the set
+// an operator chose (Configure, SetPrescaleSet or an earlier LoadMenu) if m
+// has one of that name, else "" for m's active set. A menu's own active
+// set is not a choice: a new menu starts in the set its author named.
+func (c *Controller) keptSet(m *trigger.Menu) string {
+	if cur := c.settings.PrescaleSet; cur != "" {
+		if _, err := m.Prescales(cur); err == nil {
+			return cur
+		}
+	}
+	return ""
 }
 
 // SetPrescaleSet chooses the prescale set: from the next lumi slice when

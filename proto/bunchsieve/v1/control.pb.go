@@ -301,7 +301,10 @@ func (*StatusRequest) Descriptor() ([]byte, []int) {
 type LoadMenuRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// Menu text in the bunchsieve menu syntax.
-	Menu          string `protobuf:"bytes,1,opt,name=menu,proto3" json:"menu,omitempty"`
+	Menu string `protobuf:"bytes,1,opt,name=menu,proto3" json:"menu,omitempty"`
+	// Prescale set to take with the menu. Empty: the set an operator chose
+	// earlier stays in force if the menu has one of that name; otherwise
+	// the menu's active set.
 	PrescaleSet   string `protobuf:"bytes,2,opt,name=prescale_set,json=prescaleSet,proto3" json:"prescale_set,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
