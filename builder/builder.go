@@ -244,6 +244,14 @@ func (b *Builder) add(f *pb.Fragment, v checkVerdict, arrivalNs, sentNs int64) e
 			return b.rejectValid(f, si, ReasonLate, key, t)
 		}
 		if len(b.heap) >= b.window && b.policy == Block && !b.makeRoom(key) {
+			// The source is sending: a live one stays alive while its
+			// fragments wait for room, or a caller holding them back
+			// would see its sources declared dead. Its watermark stays
+			// (the fragment is not in), and a dead one revives only when
+			// a fragment goes in.
+			if s := &b.src[si]; s.alive {
+				s.last = b.now
+			}
 			b.st.WindowFullRefusals++
 			return b.refuse(f, key, t)
 		}

@@ -65,7 +65,9 @@
 // Otherwise policy EvictOldest emits the oldest open crossing at once,
 // incomplete and flagged EVICTED (the new crossing itself, if it is the
 // oldest); policy Block refuses the fragment with ErrWindowFull and the
-// caller offers it again after Advance. Either way the closing time moves
+// caller offers it again later (after Advance or other fragments, or after
+// Evict). A refused fragment keeps a live source alive but does not move
+// its watermark. Either way the closing time moves
 // past what was dropped from the window. All memory is allocated by New;
 // Add allocates nothing for an accepted fragment, only the error value of
 // a rejected one.

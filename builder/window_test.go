@@ -120,6 +120,34 @@ func TestBlock(t *testing.T) {
 	checkBalanced(t, b, 3)
 }
 
+// A source whose fragments the full window keeps refusing is sending: it
+// is not declared dead while it does (a caller holding its fragments back
+// would otherwise see it die), though its watermark does not move.
+func TestBlockRefusedSourceStaysAlive(t *testing.T) {
+	b, _ := newBuilder(t, Config{Sources: []uint32{1, 2, 3}, Window: 2, WhenFull: Block, Lateness: 1, DeadAfter: 1000})
+	for _, bc := range []uint32{10, 20} {
+		if err := b.Add(frag(1, 0, 0, bc), 0, 0); err != nil {
+			t.Fatal(err)
+		}
+	}
+	wm := sourceStats(t, b, 1).WatermarkNs
+	for now := int64(100); now <= 1000; now += 100 {
+		for _, src := range []uint32{1, 2} {
+			if err := b.Add(frag(src, 0, 0, 30), now, 0); !errors.Is(err, ErrWindowFull) {
+				t.Fatalf("source %d at %d: %v, want the window full", src, now, err)
+			}
+		}
+	}
+	b.Advance(1050)
+	if s := b.Stats(); s.Live != 2 {
+		t.Fatalf("%d live sources after source 3's silence, want the refused sources 1 and 2: %+v", s.Live, s)
+	}
+	if got := sourceStats(t, b, 1).WatermarkNs; got != wm {
+		t.Fatalf("source 1's watermark moved from %d to %d on refused fragments", wm, got)
+	}
+	checkBalanced(t, b, 3)
+}
+
 func sourceStats(t *testing.T, b *Builder, id uint32) SourceStats {
 	t.Helper()
 	s, ok := b.SourceStats(id)
