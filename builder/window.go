@@ -182,6 +182,30 @@ func (b *Builder) release() {
 	}
 }
 
+// Evict makes room for one more crossing as policy EvictOldest does: the
+// oldest tracked crossing is emitted incomplete and flagged EVICTED if it
+// is still open, or just forgotten if it was emitted, and everything up to
+// it counts as decided. It reports false, changing nothing, when no
+// crossing is tracked. It is for a caller of policy Block that can hold
+// refused fragments no longer. It panics when called from the emit
+// callback.
+func (b *Builder) Evict() bool {
+	if b.emitting {
+		panic("builder: Evict called from the emit callback")
+	}
+	if len(b.heap) == 0 {
+		return false
+	}
+	ci := b.heapPop()
+	c := &b.pool[ci]
+	b.closeThrough(c.t)
+	if c.open {
+		b.emit(ci, evictedFlag)
+	}
+	b.forget(ci)
+	return true
+}
+
 // trim brings the window back to its size after a new crossing went in
 // beyond it (policy EvictOldest): the oldest tracked crossing is emitted as
 // evicted if still open, or just forgotten if already emitted. Either way

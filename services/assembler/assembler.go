@@ -85,6 +85,13 @@ type Assembler struct {
 	lastLog   time.Time
 	suppress  int
 	undecoded uint64
+	// held are the fragments the builder refused for want of room (policy
+	// Block), with their send times, waiting to be offered again; at
+	// heldLimit of them the oldest crossings are evicted to let them in
+	// (evictForHeldLocked).
+	held      []heldOffer
+	heldLimit int
+	heldTried uint64 // a.emitted when held was last offered again
 	// bytesIn counts the encoded batch bytes of each expected source, at
 	// its sourceIndex (the metrics export no other source's).
 	bytesIn     []uint64
@@ -134,6 +141,13 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Assembler, erro
 		}
 	}
 	a.bytesIn = make([]uint64, len(cfg.Builder.Sources))
+	// A window's worth of every source's fragments: sources can be that
+	// far ahead of the crossings the window waits on before room is made.
+	window := cfg.Builder.Window
+	if window == 0 {
+		window = builder.DefaultWindow
+	}
+	a.heldLimit = window * max(len(cfg.Builder.Sources), 1)
 	b, err := builder.New(cfg.Builder, a.emit)
 	if err != nil {
 		return nil, fmt.Errorf("assembler: %w", err)
@@ -186,7 +200,9 @@ func (a *Assembler) Run(ctx context.Context) error {
 			finished = true
 		case <-tick.C:
 			a.mu.Lock()
-			a.b.Advance(time.Now().UnixNano())
+			now := time.Now().UnixNano()
+			a.b.Advance(now)
+			a.retryHeldLocked(now)
 			err := a.publishLocked(false)
 			a.noteDrops(sub)
 			a.mu.Unlock()
@@ -200,6 +216,10 @@ func (a *Assembler) Run(ctx context.Context) error {
 	// Dropped fails once the subscription is closed: count first.
 	a.noteDrops(sub)
 	_ = sub.Unsubscribe()
+	a.b.Flush()
+	// The flush emptied the window: every refused fragment now goes in or
+	// is counted (late, as a rule), so none is lost from the accounting.
+	a.retryHeldLocked(time.Now().UnixNano())
 	a.b.Flush()
 	if err := a.publishLocked(false); err != nil {
 		return err
@@ -275,34 +295,112 @@ func (a *Assembler) takeLocked(msg *nats.Msg, arrival int64) {
 		}
 		a.undecoded++
 		a.m.undecodable.Inc()
-		a.logDiscard(fmt.Errorf("undecodable batch on %s: %v", msg.Subject, err))
+		a.logDiscard(fmt.Errorf("assembler: undecodable batch on %s: %v", msg.Subject, err))
 		return
 	}
 	if i, ok := a.sourceIndex[batch.sourceID]; ok {
 		a.bytesIn[i] += uint64(len(msg.Data))
 	}
 	for _, h := range batch.frags {
-		if err := a.add(h, arrival, batch.sentUnixNs); err != nil {
-			if errors.Is(err, builder.ErrWindowFull) {
-				// Block policy: make room by advancing, then retry once; a
-				// second refusal is counted by the builder.
-				a.b.Advance(arrival)
-				err = a.add(h, arrival, batch.sentUnixNs)
-			}
-			if err != nil {
-				// Not kept by the builder.
-				a.pool.put(h)
-				a.logDiscard(err)
-			}
-		}
+		a.offerLocked(h, arrival, batch.sentUnixNs)
 	}
 	batch.frags = batch.frags[:0]
+	// Room appears only when crossings are emitted: retry then.
+	if len(a.held) > 0 && a.emitted != a.heldTried {
+		a.retryHeldLocked(arrival)
+	}
+	if len(a.held) >= a.heldLimit {
+		a.evictForHeldLocked(arrival)
+	}
 	if batch.endOfRun && !a.ended[batch.sourceID] {
+		if _, expected := a.sourceIndex[batch.sourceID]; !expected {
+			// A marker from a source this run does not expect must not
+			// end the run for the ones still sending.
+			a.logDiscard(fmt.Errorf("assembler: end-of-run marker from source %d, which this run does not expect, ignored", batch.sourceID))
+			return
+		}
 		a.ended[batch.sourceID] = true
 		if len(a.ended) >= len(a.cfg.Builder.Sources) {
 			close(a.done)
 		}
 	}
+}
+
+// heldOffer is a fragment the builder refused for want of room, and the
+// send time of its batch.
+type heldOffer struct {
+	h    *heldFragment
+	sent int64
+}
+
+// offerLocked hands h to the builder. A fragment refused for want of room
+// (policy Block) waits in a.held to be offered again; any other refusal
+// is counted by the builder, and h goes back to the pool. Called with
+// a.mu held.
+func (a *Assembler) offerLocked(h *heldFragment, arrival, sent int64) {
+	err := a.add(h, arrival, sent)
+	switch {
+	case err == nil:
+	case errors.Is(err, builder.ErrWindowFull):
+		a.held = append(a.held, heldOffer{h, sent})
+	default:
+		a.pool.put(h)
+		a.logDiscard(err)
+	}
+}
+
+// retryHeldLocked offers the refused fragments again, oldest first, at
+// arrival time now, keeping those refused again. All are offered: a
+// fragment that completes a crossing already open goes in whatever the
+// window, and the room it frees lets the older refused ones in on the next
+// retry (after the next batch, or on the tick). Called with a.mu held.
+func (a *Assembler) retryHeldLocked(now int64) {
+	a.heldTried = a.emitted
+	waiting := a.held
+	a.held = a.held[:0]
+	for _, o := range waiting {
+		// offerLocked appends to a.held, which shares waiting's array
+		// and never overtakes the read position.
+		a.offerLocked(o.h, now, o.sent)
+	}
+	clear(waiting[len(a.held):])
+}
+
+// evictForHeldLocked runs when the refused fragments reach their limit:
+// it offers them again oldest first, and makes room for each one refused
+// as policy evict would (the oldest crossing goes out incomplete, flagged
+// evicted), until half the limit is left. Block holds fragments back only
+// so far: a service cannot hold back the readout on core NATS, and pausing
+// the reading instead would leave every source silent to the builder, so
+// all of them would be declared dead together. Called with a.mu held.
+func (a *Assembler) evictForHeldLocked(now int64) {
+	i := 0
+	for len(a.held)-i > a.heldLimit/2 {
+		o := a.held[i]
+		err := a.add(o.h, now, o.sent)
+		if errors.Is(err, builder.ErrWindowFull) {
+			if !a.b.Evict() {
+				break // nothing tracked, so nothing can be refused; defensive
+			}
+			continue
+		}
+		if err != nil {
+			a.pool.put(o.h)
+			a.logDiscard(err)
+		}
+		i++
+	}
+	n := copy(a.held, a.held[i:])
+	clear(a.held[n:])
+	a.held = a.held[:n]
+}
+
+// Held returns how many fragments refused for want of room (policy Block)
+// wait to be offered again. It is safe for concurrent use.
+func (a *Assembler) Held() int {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return len(a.held)
 }
 
 // add hands one decoded fragment to the builder, with the verdict of the

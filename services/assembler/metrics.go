@@ -70,13 +70,19 @@ var (
 	descOpen = func(l prometheus.Labels) *prometheus.Desc {
 		return prometheus.NewDesc("bunchsieve_builder_open_crossings", "Crossings the builder is tracking (open or recently emitted).", nil, l)
 	}
+	descHeld = func(l prometheus.Labels) *prometheus.Desc {
+		return prometheus.NewDesc("bunchsieve_builder_fragments_held", "Fragments the window had no room for (when_full: block), waiting in the builder to be offered again.", nil, l)
+	}
+	descRefusals = func(l prometheus.Labels) *prometheus.Desc {
+		return prometheus.NewDesc("bunchsieve_builder_window_full_refusals_total", "Times a fragment found the window full and was held back (when_full: block); a fragment offered again and refused again counts again.", nil, l)
+	}
 	descBuilt = func(l prometheus.Labels) *prometheus.Desc {
 		return prometheus.NewDesc("bunchsieve_builder_events_built_total", "Events emitted by the builder, by completeness.", []string{"completeness"}, l)
 	}
 )
 
 func (c *accounting) Describe(ch chan<- *prometheus.Desc) {
-	for _, d := range []func(prometheus.Labels) *prometheus.Desc{descReceived, descBytes, descDiscarded, descAlive, descOpen, descBuilt} {
+	for _, d := range []func(prometheus.Labels) *prometheus.Desc{descReceived, descBytes, descDiscarded, descAlive, descOpen, descHeld, descRefusals, descBuilt} {
 		ch <- d(c.inst)
 	}
 }
@@ -87,11 +93,13 @@ func (c *accounting) Collect(ch chan<- prometheus.Metric) {
 	defer a.mu.Unlock()
 	s := a.b.Stats()
 	recv, disc, alive, bytes := descReceived(c.inst), descDiscarded(c.inst), descAlive(c.inst), descBytes(c.inst)
+	var knownMalformed uint64
 	for _, id := range a.cfg.Builder.Sources {
 		ss, ok := a.b.SourceStats(id)
 		if !ok {
 			continue
 		}
+		knownMalformed += ss.Malformed
 		src := strconv.FormatUint(uint64(id), 10)
 		ch <- prometheus.MustNewConstMetric(recv, prometheus.CounterValue, float64(ss.Received), src)
 		ch <- prometheus.MustNewConstMetric(bytes, prometheus.CounterValue, float64(a.bytesIn[a.sourceIndex[id]]), src)
@@ -108,7 +116,12 @@ func (c *accounting) Collect(ch chan<- prometheus.Metric) {
 		ch <- prometheus.MustNewConstMetric(alive, prometheus.GaugeValue, up, src)
 	}
 	ch <- prometheus.MustNewConstMetric(disc, prometheus.CounterValue, float64(s.UnknownSource), "unknown", "unknown_source")
+	// A damaged fragment whose source id is not expected (the id itself
+	// may be what was damaged) is malformed, but of no known source.
+	ch <- prometheus.MustNewConstMetric(disc, prometheus.CounterValue, float64(s.Malformed-knownMalformed), "unknown", "malformed")
 	ch <- prometheus.MustNewConstMetric(descOpen(c.inst), prometheus.GaugeValue, float64(s.Open))
+	ch <- prometheus.MustNewConstMetric(descHeld(c.inst), prometheus.GaugeValue, float64(len(a.held)))
+	ch <- prometheus.MustNewConstMetric(descRefusals(c.inst), prometheus.CounterValue, float64(s.WindowFullRefusals))
 	built := descBuilt(c.inst)
 	ch <- prometheus.MustNewConstMetric(built, prometheus.CounterValue, float64(s.EventsComplete), "complete")
 	ch <- prometheus.MustNewConstMetric(built, prometheus.CounterValue, float64(s.EventsIncomplete), "incomplete")

@@ -160,3 +160,43 @@ func TestFaultInjectionAccounting(t *testing.T) {
 		t.Errorf("built %d of %d crossings, %d incomplete", sum.EventsBuilt, sum.Crossings, sum.EventsIncomplete)
 	}
 }
+
+// With policy block, a source that stops sending for a stretch makes the
+// window fill: the builder holds the other sources' fragments back until
+// the silent source is declared dead, and then builds every crossing. The
+// accounting closes and no crossing is lost (the service used to drop the
+// fragments it was refused, uncounted).
+func TestBlockPolicyStalledSource(t *testing.T) {
+	rc := runconfig.Default()
+	rc.RateHz = 0
+	rc.Builder.WhenFull = "block"
+	// A short lateness allows a short window (block needs one as long),
+	// which fills in a few ms, long before source 5 is declared dead.
+	rc.Builder.Lateness = 10 * time.Microsecond
+	rc.Builder.Window = 1000
+	rc.Builder.DeadAfter = 200 * time.Millisecond
+	// Source 5 sends nothing for 12,000 crossings: more than the window.
+	rc.Faults = []emulator.Fault{{Sources: []uint32{5}, StallFrom: 2000, StallTo: 14000}}
+	st, err := New(Options{Run: rc, Crossings: 20000})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	sum, err := st.Run(context.Background())
+	if err != nil {
+		t.Fatal(err)
+	}
+	f := sum.Fragments
+	if !f.Closed() || f.Received != sum.Crossings*uint64(sum.Sources)-12000 {
+		t.Fatalf("fragments %+v, want %d received and the accounting closed", f, sum.Crossings*uint64(sum.Sources)-12000)
+	}
+	// The stalled crossings lack source 5; so may a few just after, built
+	// while it was dead, whose source 5 fragments then came late.
+	if sum.EventsBuilt != sum.Crossings || sum.EventsIncomplete != 12000+f.Late || sum.EventsDecided != sum.Crossings {
+		t.Fatalf("built %d (%d incomplete), decided %d of %d crossings, %d late fragments; want all, the 12,000 stalled ones and those with a late fragment incomplete",
+			sum.EventsBuilt, sum.EventsIncomplete, sum.EventsDecided, sum.Crossings, f.Late)
+	}
+	if r := st.chain.asm.Stats().WindowFullRefusals; r == 0 {
+		t.Fatal("the window never filled: the test does not test block")
+	}
+}
