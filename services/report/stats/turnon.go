@@ -35,6 +35,10 @@ func TurnOn(x, x50, sigma, plateau float64) float64 {
 type EffBin struct {
 	X           float64
 	Pass, Total int
+	// Width is the bin's full width; zero means the distance from X to
+	// the nearest other centre among the bins given to FitTurnOn (empty
+	// bins included), which is the width for equal bins.
+	Width float64
 }
 
 // TurnOnFit is the result of FitTurnOn. Cov is the covariance matrix of
@@ -62,20 +66,62 @@ type TurnOnFit struct {
 // that the data do not determine (an *UndeterminedError).
 var ErrFitFailed = errors.New("stats: turn-on fit failed")
 
-// UndeterminedError is the FitTurnOn error for a fit that converged but one
-// of whose parameters the data do not determine: its standard error is not
-// finite or exceeds Limit. It wraps ErrFitFailed; its fields let a caller
-// restate the reason, for example with the unit of x. Its methods are safe
-// for concurrent use.
+// Criterion names the test of FitTurnOn that refused a fit as not
+// determined by the data (UndeterminedError.Criterion).
+type Criterion uint8
+
+const (
+	// ErrorBeyondRange: the standard error of Param, StdErr, is not
+	// finite or exceeds Limit (the fitted range, from the first to the
+	// last bin centre with events, Lo to Hi, for the 50% point and the
+	// width; 1 for a free plateau).
+	ErrorBeyondRange Criterion = iota
+	// OutsideBins: the 50% point, Value, lies outside the bins with
+	// events, from the lower edge of the first, Lo, to the upper edge of
+	// the last, Hi.
+	OutsideBins
+	// SharperThanBins: the width, Value, is below the width of the bin
+	// at the 50% point, Limit, and the 50% point and the width are
+	// correlated by Corr, beyond MaxStepCorrelation in magnitude.
+	SharperThanBins
+	// WidthWithinError: the width's standard error, StdErr, exceeds the
+	// width itself, Value.
+	WidthWithinError
+)
+
+// MaxStepCorrelation is the largest magnitude of the correlation of the
+// 50% point and the width that FitTurnOn accepts when the width is below
+// the bin width. Beyond it the likelihood is a narrow valley along which
+// the two trade for each other (at 0.99 its long axis is 14 times its
+// short one, sqrt((1+0.99)/(1-0.99))): the data place the step between
+// two bin centres and fix neither parameter. The value is a rule of
+// thumb of our own, not a published one.
+const MaxStepCorrelation = 0.99
+
+// UndeterminedError is the FitTurnOn error for a fit that converged but
+// whose parameters the data do not determine, by one of the criteria
+// FitTurnOn lists. It wraps ErrFitFailed; its fields let a caller restate
+// the reason, for example with the unit of x. Its methods are safe for
+// concurrent use.
 type UndeterminedError struct {
+	// Criterion is the test that failed; the meaning of the fields below
+	// depends on it (see the Criterion constants).
+	Criterion Criterion
 	// Param names the parameter: "50% point", "width" or "plateau".
 	Param string
+	// Value is the parameter's fitted value (OutsideBins,
+	// SharperThanBins, WidthWithinError).
+	Value float64
 	// StdErr is the parameter's standard error from the fit's covariance.
 	StdErr float64
-	// Limit is the largest error accepted: the fitted range Hi - Lo for the
-	// 50% point and the width, 1 for the plateau.
+	// Limit is the largest error accepted (ErrorBeyondRange) or the bin
+	// width (SharperThanBins).
 	Limit float64
-	// Lo and Hi are the smallest and largest X of the bins with events.
+	// Corr is the correlation of the 50% point and the width
+	// (SharperThanBins).
+	Corr float64
+	// Lo and Hi are the smallest and largest X of the bins with events
+	// (ErrorBeyondRange), or the outer edges of those bins (OutsideBins).
 	Lo, Hi float64
 	// Unit is the unit of x, written after the numbers in the message of
 	// the 50% point and the width; empty (as FitTurnOn leaves it) writes
@@ -84,12 +130,27 @@ type UndeterminedError struct {
 }
 
 func (e *UndeterminedError) Error() string {
-	if e.Param == "plateau" {
-		return fmt.Sprintf("%v: the plateau is not determined: its error, %.2g, exceeds %g, the whole range of an efficiency", ErrFitFailed, e.StdErr, e.Limit)
-	}
 	u := ""
 	if e.Unit != "" {
 		u = " " + e.Unit
+	}
+	switch e.Criterion {
+	case OutsideBins:
+		side := "below"
+		if e.Value > e.Hi {
+			side = "above"
+		}
+		return fmt.Sprintf("%v: the 50%% point is not measured: the fit puts it at %.4g%s, %s the bins with events (%.4g to %.4g%s), so it is an extrapolation",
+			ErrFitFailed, e.Value, u, side, e.Lo, e.Hi, u)
+	case SharperThanBins:
+		return fmt.Sprintf("%v: the turn-on is a step sharper than the bins: the fitted width, %.3g%s, is below the bin width of %.4g%s, and the 50%% point and the width are correlated by %.4f, so the data place the step between two bin centres but fix neither",
+			ErrFitFailed, e.Value, u, e.Limit, u, e.Corr)
+	case WidthWithinError:
+		return fmt.Sprintf("%v: the width is not determined: its error, %.3g%s, exceeds the width itself, %.3g%s, so the data do not tell a gradual rise from a sharp step",
+			ErrFitFailed, e.StdErr, u, e.Value, u)
+	}
+	if e.Param == "plateau" {
+		return fmt.Sprintf("%v: the plateau is not determined: its error, %.2g, exceeds %g, the whole range of an efficiency", ErrFitFailed, e.StdErr, e.Limit)
 	}
 	return fmt.Sprintf("%v: the %s is not determined: its error, %.2g%s, exceeds the fitted range of %.4g%s (the bins with events, centred from %.4g to %.4g%s)",
 		ErrFitFailed, e.Param, e.StdErr, u, e.Limit, u, e.Lo, e.Hi, u)
@@ -100,33 +161,54 @@ func (e *UndeterminedError) Unwrap() error { return ErrFitFailed }
 
 // FitTurnOn fits TurnOn to binned efficiency data by binned maximum
 // likelihood: each bin's Pass is binomial of Total with probability
-// TurnOn(X), evaluated at the bin centre. It minimises the negative
-// log-likelihood with BFGS on its analytic gradient from a start read off
-// the data, then takes the covariance from the inverse of the Hessian,
-// computed by central finite differences. A plateau above 1 is refitted
-// fixed at 1 (PlateauFixed). It needs at least four bins with events. The
-// fit is deterministic and FitTurnOn is safe for concurrent use; it does
-// not panic.
+// TurnOn(X), evaluated at the bin centre. The bins are in increasing X. It
+// minimises the negative log-likelihood with BFGS on its analytic gradient
+// from a start read off the data, then takes the covariance from the
+// inverse of the Hessian, computed by central finite differences. A
+// plateau above 1 is refitted fixed at 1 (PlateauFixed); a fit that fails
+// at a minimum with its plateau below 1 is not. It needs at least
+// four bins with events. The fit is deterministic and FitTurnOn is safe for
+// concurrent use; it does not panic.
 //
 // A fit that converges is still refused, with an *UndeterminedError, when
-// the data do not determine its parameters: when the standard error of the
-// 50% point or of the width is not finite or exceeds the fitted range (the
-// largest minus the smallest X of the bins with events), or that of a free
-// plateau exceeds 1, the whole range an efficiency can take. A one-standard-
-// error interval wider than all the data means the likelihood is flat
-// wherever the data could place the parameter, and the quadratic
-// approximation that gives the error has itself broken down (a handful of
-// passing events in one bin does that). The test is on the fit's own
-// covariance, not on counts of events or bins, so it follows the amount of
-// information: multiplying every Pass and Total by c keeps the minimum and
-// divides the covariance by c.
+// the data do not determine its parameters. The criteria, in the order
+// they are tried:
+//
+//   - ErrorBeyondRange: the standard error of the 50% point or of the width
+//     is not finite or exceeds the fitted range (the largest minus the
+//     smallest X of the bins with events), or that of a free plateau
+//     exceeds 1, the whole range an efficiency can take. A one-standard-
+//     error interval wider than all the data means the likelihood is flat
+//     wherever the data could place the parameter, and the quadratic
+//     approximation that gives the error has itself broken down.
+//   - OutsideBins: the 50% point lies outside the bins with events (below
+//     the lower edge of the first, above the upper edge of the last). The
+//     data then hold no efficiency on one side of half the plateau, and the
+//     point is the curve's extrapolation, whatever its error says.
+//   - SharperThanBins: the width is below the bin width and the 50% point
+//     and the width are correlated beyond MaxStepCorrelation. The rise
+//     then happens between two bin centres: the likelihood is flat along a
+//     valley on which a later 50% point is traded for a narrower width,
+//     and neither is measured. Scaling the counts up does not change
+//     this; finer bins do.
+//   - WidthWithinError: the width's standard error exceeds the width: the
+//     data do not exclude a width of zero, a step, at one standard error.
+//
+// The first and the last follow the amount of information: multiplying
+// every Pass and Total by c keeps the minimum and divides the covariance
+// by c. The second and the third depend on where the data and the curve
+// lie (a correlation does not change with c), which more events do not
+// move.
 func FitTurnOn(bins []EffBin) (TurnOnFit, error) {
 	var used []EffBin
-	for _, b := range bins {
+	for i, b := range bins {
 		if b.Pass < 0 || b.Pass > b.Total {
 			return TurnOnFit{}, fmt.Errorf("%w: bin at %v has %d of %d", ErrFitFailed, b.X, b.Pass, b.Total)
 		}
 		if b.Total > 0 {
+			if b.Width == 0 {
+				b.Width = nearestSpacing(bins, i)
+			}
 			used = append(used, b)
 		}
 	}
@@ -135,16 +217,19 @@ func FitTurnOn(bins []EffBin) (TurnOnFit, error) {
 	}
 	x0 := startValues(used)
 	out, err := fit(used, x0, false)
-	if err != nil || out.Plateau > 1 {
+	if out.Plateau > 1 || (err != nil && !(out.Plateau > 0)) {
 		// An efficiency cannot exceed 1. A best plateau above 1 (where the
 		// likelihood, clipped at 1, also loses its curvature) means the
 		// maximum lies on the boundary: the plateau is fixed there and the
-		// other two parameters refitted.
+		// other two parameters refitted. So is a fit that reached no
+		// minimum (and left the plateau at zero). A fit that failed at a
+		// minimum below 1 failed for another reason, such as a step
+		// sharper than the bins, which forcing the plateau of data that
+		// level off below 1 up to 1 would only hide under a curve that
+		// misses them.
 		fixed := append([]float64(nil), x0...)
 		fixed[2] = 1
-		if alt, altErr := fit(used, fixed, true); altErr == nil && (err != nil || alt.Plateau <= 1) {
-			out, err = alt, nil
-		}
+		out, err = fit(used, fixed, true)
 	}
 	if err != nil {
 		return TurnOnFit{}, err
@@ -201,18 +286,18 @@ func fit(used []EffBin, x0 []float64, fixPlateau bool) (TurnOnFit, error) {
 	if q[1] < 1e-6*span {
 		return TurnOnFit{}, fmt.Errorf("%w: the turn-on is a step sharper than the bins resolve, so it has no width to fit", ErrFitFailed)
 	}
+	p := full(q)
+	out := TurnOnFit{X50: p[0], Sigma: p[1], Plateau: p[2], PlateauFixed: fixPlateau}
 	var h mat.SymDense
 	fd.Hessian(&h, nll, q, &fd.Settings{Formula: fd.Central})
 	var chol mat.Cholesky
 	if !chol.Factorize(&h) {
-		return TurnOnFit{}, fmt.Errorf("%w: the likelihood has no curvature at its minimum (a step sharper than the bins, or too few events in the rise)", ErrFitFailed)
+		return out, fmt.Errorf("%w: the likelihood has no curvature at its minimum: a step sharper than the bins, or too few events in the rise", ErrFitFailed)
 	}
 	var cov mat.SymDense
 	if err := chol.InverseTo(&cov); err != nil {
-		return TurnOnFit{}, fmt.Errorf("%w: %v", ErrFitFailed, err)
+		return out, fmt.Errorf("%w: %v", ErrFitFailed, err)
 	}
-	p := full(q)
-	out := TurnOnFit{X50: p[0], Sigma: p[1], Plateau: p[2], PlateauFixed: fixPlateau}
 	for i := range free {
 		for j := range free {
 			out.Cov[i][j] = cov.At(i, j)
@@ -222,9 +307,24 @@ func fit(used []EffBin, x0 []float64, fixPlateau bool) (TurnOnFit, error) {
 	return out, nil
 }
 
-// determined returns an *UndeterminedError for the first of the 50% point,
-// the width and a free plateau whose standard error is not finite or
-// exceeds its limit (see FitTurnOn), or nil.
+// nearestSpacing returns the distance from bin i's centre to the nearest
+// other centre of bins, or 0 when there is none.
+func nearestSpacing(bins []EffBin, i int) float64 {
+	d := math.Inf(1)
+	for j, b := range bins {
+		if j != i && b.X != bins[i].X {
+			d = math.Min(d, math.Abs(b.X-bins[i].X))
+		}
+	}
+	if math.IsInf(d, 1) {
+		return 0
+	}
+	return d
+}
+
+// determined returns an *UndeterminedError for the first criterion of
+// FitTurnOn the fit fails, or nil. used are the bins with events, with
+// their widths.
 func determined(out TurnOnFit, used []EffBin) error {
 	lo, hi := math.Inf(1), math.Inf(-1)
 	for _, b := range used {
@@ -241,8 +341,30 @@ func determined(out TurnOnFit, used []EffBin) error {
 	for _, c := range checks {
 		// Written so that NaN fails too.
 		if !(c.stdErr <= c.limit) {
-			return &UndeterminedError{Param: c.param, StdErr: c.stdErr, Limit: c.limit, Lo: lo, Hi: hi}
+			return &UndeterminedError{Criterion: ErrorBeyondRange, Param: c.param, StdErr: c.stdErr, Limit: c.limit, Lo: lo, Hi: hi}
 		}
+	}
+
+	first, last := used[0], used[len(used)-1]
+	loEdge, hiEdge := first.X-first.Width/2, last.X+last.Width/2
+	if !(out.X50 >= loEdge && out.X50 <= hiEdge) {
+		return &UndeterminedError{Criterion: OutsideBins, Param: "50% point", Value: out.X50, StdErr: out.X50Err, Lo: loEdge, Hi: hiEdge}
+	}
+
+	// The width of the bin at the 50% point: that of the nearest centre.
+	width, dist := first.Width, math.Inf(1)
+	for _, b := range used {
+		if d := math.Abs(b.X - out.X50); d < dist {
+			width, dist = b.Width, d
+		}
+	}
+	corr := out.Cov[0][1] / math.Sqrt(out.Cov[0][0]*out.Cov[1][1])
+	if out.Sigma < width && math.Abs(corr) > MaxStepCorrelation {
+		return &UndeterminedError{Criterion: SharperThanBins, Param: "width", Value: out.Sigma, StdErr: out.SigmaErr, Limit: width, Corr: corr}
+	}
+
+	if !(out.SigmaErr <= out.Sigma) {
+		return &UndeterminedError{Criterion: WidthWithinError, Param: "width", Value: out.Sigma, StdErr: out.SigmaErr}
 	}
 	return nil
 }
