@@ -18,7 +18,8 @@ type accumulator struct {
 	menu   *trigger.Menu // the report's menu, as given
 	run    *trigger.Menu // the menu decided: Menu, or Menu with scan rules
 	nRules int           // rules of the report's menu: the first of run's
-	pres   []int         // their prescales
+	set    string        // the prescale set applied: Options.PrescaleSet or the active set
+	pres   []int         // its prescales
 	etaMax float64
 
 	all                  stats.Count // every event
@@ -90,7 +91,7 @@ func newAccumulator(opts Options, sample replay.Sample) (*accumulator, replay.Co
 	if err != nil {
 		return nil, cfg, fmt.Errorf("report: menu %s: %w", m.Name, err)
 	}
-	a.pres = pres
+	a.set, a.pres = set, pres
 
 	// Scans: one extra rule per point, compiled into a copy of the menu.
 	var extra []extraRule
@@ -173,8 +174,11 @@ func newAccumulator(opts Options, sample replay.Sample) (*accumulator, replay.Co
 		a.effs = append(a.effs, effAcc{spec: es, rule: ri, ref: ref, edges: edges, total: make([]uint64, n), pass: make([]uint64, n)})
 	}
 
+	// The prescales are given explicitly (the scan rules need theirs);
+	// the set names go along so that the replay's summary tells the same.
 	cfg.Menus = []*trigger.Menu{a.run}
 	cfg.Prescales = [][]int{runPres}
+	cfg.PrescaleSets = []string{set}
 	if c := opts.Compare; c != nil {
 		cset := opts.ComparePrescaleSet
 		if cset == "" {
@@ -203,6 +207,7 @@ func newAccumulator(opts Options, sample replay.Sample) (*accumulator, replay.Co
 		a.cmp = ca
 		cfg.Menus = append(cfg.Menus, c)
 		cfg.Prescales = append(cfg.Prescales, cp)
+		cfg.PrescaleSets = append(cfg.PrescaleSets, cset)
 	}
 
 	r := a.nRules

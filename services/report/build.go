@@ -3,6 +3,7 @@ package report
 import (
 	"errors"
 	"fmt"
+	"strings"
 
 	"github.com/bunchsieve/bunchsieve/detector"
 	"github.com/bunchsieve/bunchsieve/services/report/replay"
@@ -23,7 +24,7 @@ func (a *accumulator) report(sum replay.Summary) *Report {
 			Detector: d.Config.Name, FillingScheme: d.Filling.Name, CollidingBunch: d.Filling.Colliding(),
 			RevolutionHz: detector.RevolutionHz, CrossingRateHz: crossingRate(d),
 		},
-		Menu: menuInfo(a.menu, sum.PrescaleSets[0]),
+		Menu: menuInfo(a.menu, a.set),
 	}
 	p := &rep.Processing
 	p.Crossings, p.SumWeights, p.SumWeights2 = a.all.N, a.all.SumW, a.all.SumW2
@@ -56,7 +57,7 @@ func (a *accumulator) report(sum replay.Summary) *Report {
 		rep.Efficiencies = append(rep.Efficiencies, a.efficiency(&ef))
 	}
 	if a.cmp != nil {
-		rep.Comparison = a.comparison(sum.PrescaleSets[1])
+		rep.Comparison = a.comparison()
 	}
 	return rep
 }
@@ -130,7 +131,7 @@ func (a *accumulator) efficiency(ef *effAcc) Efficiency {
 			b.Efficiency, b.Lower, b.Upper = &e, &lo, &hi
 		}
 		out.Bins = append(out.Bins, b)
-		bins = append(bins, stats.EffBin{X: (b.Lo + b.Hi) / 2, Pass: int(b.Pass), Total: int(b.Total)})
+		bins = append(bins, stats.EffBin{X: (b.Lo + b.Hi) / 2, Pass: int(b.Pass), Total: int(b.Total), Width: b.Hi - b.Lo})
 	}
 	fit, err := stats.FitTurnOn(bins)
 	if err != nil {
@@ -142,7 +143,7 @@ func (a *accumulator) efficiency(ef *effAcc) Efficiency {
 			withUnit.Unit = ef.ref.unit
 			err = &withUnit
 		}
-		out.FitError = err.Error()
+		out.FitError = fitReason(err)
 	} else {
 		out.Fit = &ErfFit{X50: fit.X50, X50Err: fit.X50Err, Sigma: fit.Sigma, SigmaErr: fit.SigmaErr,
 			Plateau: fit.Plateau, PlateauErr: fit.PlateauErr, PlateauFixed: fit.PlateauFixed, Covariance: fit.Cov, Deviance: fit.Deviance, NDF: fit.NDF}
@@ -150,9 +151,20 @@ func (a *accumulator) efficiency(ef *effAcc) Efficiency {
 	return out
 }
 
-func (a *accumulator) comparison(set string) *Comparison {
+// fitReason is a failed fit's error as the report gives it: the reason
+// alone, without the package's prefix and the sentinel's "turn-on fit
+// failed", which the report's "no fit" already says.
+func fitReason(err error) string {
+	msg := err.Error()
+	if rest, ok := strings.CutPrefix(msg, stats.ErrFitFailed.Error()+": "); ok {
+		return rest
+	}
+	return strings.TrimPrefix(msg, "stats: ")
+}
+
+func (a *accumulator) comparison() *Comparison {
 	c := a.cmp
-	out := &Comparison{Menu: menuInfo(c.menu, set)}
+	out := &Comparison{Menu: menuInfo(c.menu, c.set)}
 	ptr := func(r Rate) *Rate { return &r }
 	for k, pr := range c.pairs {
 		i, j := pr[0], pr[1]

@@ -28,6 +28,12 @@ const (
 	OverlapHeight = 6.2 * vg.Inch
 )
 
+// overlapMargin is the blank border around the overlap map. Its plot
+// keeps room for the glyphs it knows of, the cells' centres and the tick
+// labels, so the outer half of the last column and the longest rule name
+// on the left would otherwise reach the edge of the image and be cut.
+const overlapMargin = 0.15 * vg.Inch
+
 // The report's own colours.
 var (
 	colourPoints  = color.RGBA{R: 0x1f, G: 0x6e, B: 0x78, A: 0xff} // deep teal
@@ -60,17 +66,17 @@ func (r *Report) WritePlots(dir string) error {
 	names := r.PlotFiles()
 	k := 0
 	for i := range r.Scans {
-		if err := save(dir, names[k], scanPlot(&r.Scans[i]), PlotWidth, PlotHeight); err != nil {
+		if err := save(dir, names[k], scanPlot(&r.Scans[i]), PlotWidth, PlotHeight, 0); err != nil {
 			return err
 		}
 		k++
 	}
-	if err := save(dir, names[k], overlapPlot(r), OverlapWidth, OverlapHeight); err != nil {
+	if err := save(dir, names[k], overlapPlot(r), OverlapWidth, OverlapHeight, overlapMargin); err != nil {
 		return err
 	}
 	k++
 	for i := range r.Efficiencies {
-		if err := save(dir, names[k], turnOnPlot(&r.Efficiencies[i], r.ConfidenceLevel), PlotWidth, PlotHeight); err != nil {
+		if err := save(dir, names[k], turnOnPlot(&r.Efficiencies[i], r.ConfidenceLevel), PlotWidth, PlotHeight, 0); err != nil {
 			return err
 		}
 		k++
@@ -78,11 +84,20 @@ func (r *Report) WritePlots(dir string) error {
 	return nil
 }
 
-func save(dir, name string, p *plot.Plot, w, h vg.Length) error {
+// save draws p, inside a blank margin on every side, as a w x h PNG and
+// SVG.
+func save(dir, name string, p *plot.Plot, w, h, margin vg.Length) error {
+	inset := func(c draw.Canvas) draw.Canvas { return draw.Crop(c, margin, -margin, margin, -margin) }
 	png := vgimg.NewWith(vgimg.UseWH(w, h), vgimg.UseDPI(PlotDPI), vgimg.UseBackgroundColor(color.White))
-	p.Draw(draw.New(png))
+	p.Draw(inset(draw.New(png)))
 	svg := vgsvg.New(w, h)
-	p.Draw(draw.New(svg))
+	sc := draw.New(svg)
+	if margin > 0 {
+		// The plot paints its background inside the margin only.
+		sc.SetColor(color.White)
+		sc.Fill(sc.Rectangle.Path())
+	}
+	p.Draw(inset(sc))
 	if err := writeFile(filepath.Join(dir, name+".png"), vgimg.PngCanvas{Canvas: png}); err != nil {
 		return err
 	}
@@ -314,7 +329,8 @@ func turnOnPlot(ef *Efficiency, cl float64) *plot.Plot {
 		curve.LineStyle.Color, curve.LineStyle.Width = colourFit, vg.Points(1.5)
 		curve.Samples = 400
 		p.Add(curve)
-		p.Legend.Add(fmt.Sprintf("fit: 50%% at %.4g±%.2g, width %.3g±%.2g, plateau %s", f.X50, f.X50Err, f.Sigma, f.SigmaErr, plateau), curve)
+		u := unitSuffix(ef.Unit)
+		p.Legend.Add(fmt.Sprintf("fit: 50%% at %.4g±%.2g%s, width %.3g±%.2g%s, plateau %s", f.X50, f.X50Err, u, f.Sigma, f.SigmaErr, u, plateau), curve)
 		half := plotter.NewFunction(func(float64) float64 { return f.Plateau / 2 })
 		half.LineStyle.Color, half.LineStyle.Dashes = colourGuide, []vg.Length{vg.Points(3), vg.Points(3)}
 		p.Add(half)

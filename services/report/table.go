@@ -27,6 +27,15 @@ func si(v float64) string {
 	return fmt.Sprintf("%.3g", v)
 }
 
+// unitSuffix is a unit written after a number, with its space; nothing for
+// a dimensionless quantity.
+func unitSuffix(unit string) string {
+	if unit == "" {
+		return ""
+	}
+	return " " + unit
+}
+
 // WriteTable prints the report for a terminal: the sample, the menu's
 // rates, and the optional sections in short.
 func (r *Report) WriteTable(w io.Writer) error {
@@ -64,7 +73,10 @@ func (r *Report) WriteTable(w io.Writer) error {
 		}
 		fmt.Fprintf(tw, "%s\t%s\t%d\t%s\t%s\t%s\t%s\t\n", rr.Name, ps, rr.Before.Events, rateText(rr.Before), rateText(rr.After), rateText(rr.Unique), rateText(rr.Cumulative))
 	}
-	fmt.Fprintf(tw, "total\t\t%d\t\t%s\t\t\t\n", r.Total.Events, rateText(r.Total))
+	// The passed column counts events before prescale; the menu's total
+	// is of events kept, so its cell stays empty (report.json and
+	// rates.csv give the kept count).
+	fmt.Fprintf(tw, "total\t\t\t\t%s\t\t\t\n", rateText(r.Total))
 	tw.Flush()
 
 	if sc := r.Scaling; sc != nil {
@@ -90,8 +102,8 @@ func (r *Report) WriteTable(w io.Writer) error {
 			if f.PlateauFixed {
 				plateau = "1 (fixed at the limit)"
 			}
-			fmt.Fprintf(&b, "50%% point %.4g ± %.2g %s, width %.3g ± %.2g, plateau %s (deviance %.1f for %d degrees of freedom)\n",
-				f.X50, f.X50Err, ef.Unit, f.Sigma, f.SigmaErr, plateau, f.Deviance, f.NDF)
+			fmt.Fprintf(&b, "50%% point %.4g ± %.2g%s, width %.3g ± %.2g%s, plateau %s (deviance %.1f for %d degrees of freedom)\n",
+				f.X50, f.X50Err, unitSuffix(ef.Unit), f.Sigma, f.SigmaErr, unitSuffix(ef.Unit), plateau, f.Deviance, f.NDF)
 		} else {
 			fmt.Fprintf(&b, "no fit (%s)\n", ef.FitError)
 		}
