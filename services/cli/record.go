@@ -2,6 +2,7 @@ package cli
 
 import (
 	"context"
+	"flag"
 	"fmt"
 	"time"
 
@@ -17,7 +18,7 @@ import (
 func runRecord(ctx context.Context, e *env, args []string) error {
 	fs := newFlags(e, "record", "--crossings N --out FILE [flags]")
 	var rf runFlags
-	rf.register(fs, "", true)
+	recordFlags(fs, &rf)
 	out := fs.String("out", "", "stream `FILE` to write")
 	partitions := fs.Int("builders", 1, "number of builder shares to split the crossings into")
 	var faults faultFlags
@@ -35,9 +36,6 @@ func runRecord(ctx context.Context, e *env, args []string) error {
 	}
 	if rf.crossings == 0 && rf.duration == 0 {
 		return usagef("give --crossings N (or --duration) so the recording ends")
-	}
-	if set["rate"] {
-		return usagef("--rate does not apply to record: crossings are written as fast as they are made")
 	}
 	if *partitions < 1 {
 		return usagef("--builders %d: want >= 1", *partitions)
@@ -91,6 +89,22 @@ func runRecord(ctx context.Context, e *env, args []string) error {
 	fmt.Fprintf(e.stdout, "record: %d crossings, %d batches, %d fragments to %s in %.2fs\n",
 		t.Crossings, t.Batches, t.Fragments, *out, time.Since(start).Seconds())
 	return runErr
+}
+
+// recordFlags registers on fs the run flags that apply to a recording,
+// as the other commands that generate crossings describe them. Left out,
+// so that the help lists only what record does: the offered rate
+// (crossings are written as fast as they are made, and the file keeps the
+// crossings' own times, so a pace would mean nothing to whoever replays
+// it), the metrics address (nothing is served), the subject prefix (no
+// NATS) and the summary file (none is written).
+func recordFlags(fs *flag.FlagSet, rf *runFlags) {
+	all := flag.NewFlagSet("record", flag.ContinueOnError)
+	rf.register(all, "", true)
+	for _, name := range []string{"config", "sources", "seed", "crossings", "duration"} {
+		f := all.Lookup(name)
+		fs.Var(f.Value, f.Name, f.Usage)
+	}
 }
 
 func generatorKind(k string) string {

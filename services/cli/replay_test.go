@@ -151,3 +151,52 @@ func TestThroughputLine(t *testing.T) {
 		t.Errorf("no events: %q", got)
 	}
 }
+
+// --prescale-set and --compare-prescale-set are what the report names: in
+// the table and in report.json, for the menu and the menu compared.
+func TestReplayNamesThePrescaleSetUsed(t *testing.T) {
+	dir := filepath.Join(t.TempDir(), "out")
+	code, stdout, stderr := runCLI(t, time.Minute, "replay", "--generate", "100", "--seed", "3", "--mu", "10", "--no-progress",
+		"--out", dir, "--prescale-set", "quiet", "--compare", writeMenuWithSets(t), "--compare-prescale-set", "strict")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	for _, want := range []string{"), prescale set quiet\n", "compared with menu two-sets (hash ", "), prescale set strict;"} {
+		if !strings.Contains(stdout, want) {
+			t.Errorf("stdout lacks %q:\n%s", want, stdout)
+		}
+	}
+	data, err := os.ReadFile(filepath.Join(dir, "report.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rep struct {
+		Menu struct {
+			PrescaleSet string `json:"prescale_set"`
+		} `json:"menu"`
+		Comparison struct {
+			Menu struct {
+				PrescaleSet string `json:"prescale_set"`
+			} `json:"menu"`
+		} `json:"comparison"`
+	}
+	if err := json.Unmarshal(data, &rep); err != nil {
+		t.Fatal(err)
+	}
+	if rep.Menu.PrescaleSet != "quiet" || rep.Comparison.Menu.PrescaleSet != "strict" {
+		t.Errorf("report.json names prescale sets %q and %q, want quiet and strict", rep.Menu.PrescaleSet, rep.Comparison.Menu.PrescaleSet)
+	}
+}
+
+// writeMenuWithSets writes a menu with two prescale sets, the first one
+// active.
+func writeMenuWithSets(t *testing.T) string {
+	t.Helper()
+	path := filepath.Join(t.TempDir(), "two-sets.yaml")
+	menu := "menu: two-sets\nversion: 1\nrules:\n  met-120: {when: \"met > 120 GeV\"}\n  sumet-500: {when: \"sumet > 500 GeV\"}\n" +
+		"prescale_sets:\n  usual: {sumet-500: 2}\n  strict: {sumet-500: 20}\nactive_set: usual\n"
+	if err := os.WriteFile(path, []byte(menu), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	return path
+}
