@@ -111,6 +111,7 @@ var badMenus = []struct {
 	{"unknown active set", goodHead + "rules:\n  m: {when: \"met > 1 GeV\"}\nactive_set: loud\n", 5, 13, "", "active_set \"loud\"", "base"},
 	{"prescale set called base", goodHead + "rules:\n  m: {when: \"met > 1 GeV\"}\nprescale_sets:\n  base: {m: 2}\n", 6, 3, "", `called "base"`, "another name"},
 	{"bad prescale in a set", goodHead + "rules:\n  m: {when: \"met > 1 GeV\"}\nprescale_sets:\n  quiet: {m: none}\n", 6, 14, "", `prescale "none"`, "or off"},
+	{"prescale zero in a set", goodHead + "rules:\n  m: {when: \"met > 1 GeV\"}\nprescale_sets:\n  quiet: {m: 0}\n", 6, 14, "", `prescale 0 for rule "m" in prescale set "quiet"`, "an integer >= 1 and <= 9007199254740992, or off"},
 	{"duplicate top-level key", goodHead + "rules:\n  m: {when: \"met > 1 GeV\"}\nrules:\n  n: {when: \"met > 1 GeV\"}\n", 5, 1, "", `key "rules" a second time`, "each key once"},
 	{"jets without a jets block", goodHead + "rules:\n  j: {when: \"jets[0].et > 1 GeV\"}\n", 4, 14, "j", `unknown collection "jets"`, "none is configured"},
 	{"unknown field", goodHead + "features:\n  jets: {finder: window}\nrules:\n  j: {when: \"jets[0].pt > 1 GeV\"}\n", 6, 22, "j", `unknown field "pt" of jets`, "et, eta, phi"},
@@ -188,6 +189,27 @@ func TestMalformedMenus(t *testing.T) {
 				t.Errorf("found %q, expected %q; want them to contain %q and %q", me.Found, me.Expected, c.found, c.expected)
 			}
 		})
+	}
+}
+
+// A prescale out of range in a set reads as one in a rule does: what was
+// found and whose it is, then what is allowed, the bound with the integer
+// and "off" as the alternative (not "off and <= N").
+func TestPrescaleSetErrorReadsLikeARules(t *testing.T) {
+	for _, c := range []struct{ src, want string }{
+		{goodHead + "rules:\n  m: {when: \"met > 1 GeV\", prescale: 0}\n",
+			`bad.yaml:4:38: rule "m": found prescale 0, expected an integer >= 1 and <= 9007199254740992`},
+		{goodHead + "rules:\n  m: {when: \"met > 1 GeV\"}\nprescale_sets:\n  quiet: {m: 0}\n",
+			`bad.yaml:6:14: found prescale 0 for rule "m" in prescale set "quiet", expected an integer >= 1 and <= 9007199254740992, or off`},
+		{goodHead + "rules:\n  m: {when: \"met > 1 GeV\"}\nprescale_sets:\n  quiet: {m: -3}\n",
+			`bad.yaml:6:14: found prescale -3 for rule "m" in prescale set "quiet", expected an integer >= 1 and <= 9007199254740992, or off`},
+		{goodHead + "rules:\n  m: {when: \"met > 1 GeV\"}\nprescale_sets:\n  quiet: {m: 2.5}\n",
+			`bad.yaml:6:14: found prescale "2.5" for rule "m" in prescale set "quiet", expected an integer >= 1, or off`},
+	} {
+		_, err := ParseMenu("bad.yaml", []byte(c.src))
+		if err == nil || err.Error() != c.want {
+			t.Errorf("got  %v\nwant %s", err, c.want)
+		}
 	}
 }
 

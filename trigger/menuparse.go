@@ -415,7 +415,7 @@ func (mp *menuParser) rule1(r entry) (RuleSpec, error) {
 		spec.Disabled = d.val.Value == "true"
 	}
 	if hasPS {
-		p, err := mp.prescale(ps.val, false)
+		p, err := mp.prescale(ps.val, false, "")
 		if err != nil {
 			return spec, err
 		}
@@ -453,11 +453,13 @@ func (mp *menuParser) rule1(r entry) (RuleSpec, error) {
 // maxPrescale keeps prescales exact as float64 and far from overflow.
 const maxPrescale = 1 << 53
 
-// prescale reads a prescale: an integer >= 1, or off where allowed.
-func (mp *menuParser) prescale(v *yaml.Node, allowOff bool) (int, error) {
-	expected := "an integer >= 1"
+// prescale reads a prescale: an integer >= 1, or off where allowed. where,
+// if not empty, follows the value in the error's found part, saying
+// whose prescale it is.
+func (mp *menuParser) prescale(v *yaml.Node, allowOff bool, where string) (int, error) {
+	orOff := ""
 	if allowOff {
-		expected = "an integer >= 1, or off"
+		orOff = ", or off"
 		if v.Kind == yaml.ScalarNode && v.Value == "off" {
 			return 0, nil
 		}
@@ -465,11 +467,12 @@ func (mp *menuParser) prescale(v *yaml.Node, allowOff bool) (int, error) {
 		return 0, mp.errAt(v, -1, "prescale off in a rule", "an integer >= 1 (switch a rule off with disabled: true, or with off in a prescale set)")
 	}
 	if v.Kind != yaml.ScalarNode || v.Tag != "!!int" {
-		return 0, mp.errAt(v, -1, "prescale "+nodeKind(v), expected)
+		return 0, mp.errAt(v, -1, "prescale "+nodeKind(v)+where, "an integer >= 1"+orOff)
 	}
 	p, err := strconv.ParseInt(v.Value, 10, 64)
 	if err != nil || p < 1 || p > maxPrescale {
-		return 0, mp.errAt(v, -1, "prescale "+v.Value, expected+fmt.Sprintf(" and <= %d", int64(maxPrescale)))
+		// The bound belongs to the integer: "or off" comes after it.
+		return 0, mp.errAt(v, -1, "prescale "+v.Value+where, fmt.Sprintf("an integer >= 1 and <= %d%s", int64(maxPrescale), orOff))
 	}
 	return int(p), nil
 }
@@ -506,7 +509,7 @@ func (mp *menuParser) prescaleSets(e entry, m *Menu) error {
 				if m.RuleIndex(r.key.Value) < 0 {
 					return mp.errAt(r.key, -1, fmt.Sprintf("unknown rule %q in prescale set %q", r.key.Value, k.Value), "a rule defined under rules ("+ruleList(m)+")")
 				}
-				p, err := mp.prescale(r.val, true)
+				p, err := mp.prescale(r.val, true, fmt.Sprintf(" for rule %q in prescale set %q", r.key.Value, k.Value))
 				if err != nil {
 					return err
 				}
