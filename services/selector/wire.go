@@ -271,7 +271,7 @@ func (t *towerTable) fillWire(frags [][]byte, lumiSlice uint32, ev *trigger.Even
 			if towers, counts, ok := pb.SplitCalo(payload); ok {
 				if counted {
 					var more []uint32
-					if _, more, ok = sc.pass.SumPacked(nil, towers, counts, len(t.cells), ct.Words); ok {
+					if more, ok = sc.pass.PackedWords(towers, counts, len(t.cells), ct.Words); ok {
 						ct.Words = more
 						continue
 					}

@@ -28,6 +28,23 @@ import (
 // packed varint list or a kept count does not fit 16 bits; the caller
 // then decodes the payload and uses Sum.
 func (c *Checksummer) SumPacked(f *Fragment, towers, counts []byte, ncells int, words []uint32) (sum uint32, out []uint32, ok bool) {
+	return c.sumPacked(f, towers, counts, ncells, words, true)
+}
+
+// PackedWords appends the words SumPacked would for the packed lists
+// towers and counts, without computing the checksum, for a reader that
+// trusts a check made upstream (the selection, after the builder). ok is
+// false exactly when SumPacked's would be.
+func (c *Checksummer) PackedWords(towers, counts []byte, ncells int, words []uint32) (out []uint32, ok bool) {
+	_, out, ok = c.sumPacked(nil, towers, counts, ncells, words, false)
+	return out, ok
+}
+
+// sumPacked is SumPacked, with the CRC left out unless crc. Without it the
+// layout is still written to the scratch buffer (stores into a cache line
+// already held cost less than a branch per pair would) and dropped when
+// the buffer is full.
+func (c *Checksummer) sumPacked(f *Fragment, towers, counts []byte, ncells int, words []uint32, crc bool) (sum uint32, out []uint32, ok bool) {
 	le := binary.LittleEndian
 	buf, n := c.header(f)
 
@@ -39,7 +56,10 @@ func (c *Checksummer) SumPacked(f *Fragment, towers, counts []byte, ncells int, 
 	ti, ci := 0, 0
 	for ti < len(towers) && ci < len(counts) {
 		if n+32 > len(buf) {
-			sum, n = crc32.Update(sum, castagnoli, buf[:n]), 0
+			if crc {
+				sum = crc32.Update(sum, castagnoli, buf[:n])
+			}
+			n = 0
 		}
 		// Four pairs at once where the next four towers are two-byte
 		// varints and the next four counts one-byte ones, as nearly all
@@ -125,7 +145,10 @@ func (c *Checksummer) SumPacked(f *Fragment, towers, counts []byte, ncells int, 
 			return 0, nil, false
 		}
 		if n+8 > len(buf) {
-			sum, n = crc32.Update(sum, castagnoli, buf[:n]), 0
+			if crc {
+				sum = crc32.Update(sum, castagnoli, buf[:n])
+			}
+			n = 0
 		}
 		le.PutUint32(buf[n:], tw)
 		le.PutUint32(buf[n+4:], 0)
@@ -137,12 +160,18 @@ func (c *Checksummer) SumPacked(f *Fragment, towers, counts []byte, ncells int, 
 			return 0, nil, false
 		}
 		if n+4 > len(buf) {
-			sum, n = crc32.Update(sum, castagnoli, buf[:n]), 0
+			if crc {
+				sum = crc32.Update(sum, castagnoli, buf[:n])
+			}
+			n = 0
 		}
 		le.PutUint32(buf[n:], ct)
 		n += 4
 	}
-	return crc32.Update(sum, castagnoli, buf[:n]), out[:j], true
+	if crc {
+		sum = crc32.Update(sum, castagnoli, buf[:n])
+	}
+	return sum, out[:j], true
 }
 
 // keep is 1 when a pair of index tw and count ct gives a word: a nonzero

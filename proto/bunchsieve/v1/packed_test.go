@@ -76,6 +76,11 @@ func TestSumPackedMatchesSum(t *testing.T) {
 		prefix := []uint32{uint32(i), 0xdead}[:i%3]
 		want = append(slices.Clone(prefix), want...)
 		sum, got, ok := fused.SumPacked(f, towers, counts, ncells, append(words[:0], prefix...))
+		// PackedWords is the same pass without the checksum.
+		only, okOnly := fused.PackedWords(towers, counts, ncells, slices.Clone(prefix))
+		if okOnly != ok || (ok && !slices.Equal(only, got)) {
+			t.Fatalf("case %d: PackedWords %x (ok %v), SumPacked %x (ok %v)", i, only, okOnly, got, ok)
+		}
 		kept16 := true
 		for k, tw := range calo.Towers {
 			if k < len(calo.EtCounts) && calo.EtCounts[k] > 0xffff && int(tw) < ncells {
@@ -106,7 +111,8 @@ func TestSumPackedMatchesSum(t *testing.T) {
 	}
 }
 
-// A list that is not valid packed varints is refused, never summed.
+// A list that is not valid packed varints is refused, never summed, by
+// SumPacked and PackedWords alike.
 func TestSumPackedRefusesBadLists(t *testing.T) {
 	var c Checksummer
 	f := &Fragment{SourceId: 3}
@@ -119,6 +125,9 @@ func TestSumPackedRefusesBadLists(t *testing.T) {
 	} {
 		if _, _, ok := c.SumPacked(f, lists[0], lists[1], 1<<16, nil); ok {
 			t.Errorf("lists %x, %x: accepted", lists[0], lists[1])
+		}
+		if _, ok := c.PackedWords(lists[0], lists[1], 1<<16, nil); ok {
+			t.Errorf("lists %x, %x: PackedWords accepted them", lists[0], lists[1])
 		}
 	}
 }
