@@ -304,6 +304,12 @@ func (a *Assembler) takeLocked(msg *nats.Msg, arrival int64) {
 	for _, h := range batch.frags {
 		a.offerLocked(h, arrival, batch.sentUnixNs)
 	}
+	for range batch.undecodable {
+		// A fragment that does not decode fails its integrity check:
+		// the builder counts it malformed under the batch's source.
+		_ = a.b.AddChecked(&pb.Fragment{SourceId: batch.sourceID, Run: a.cfg.Builder.Run}, false, arrival, batch.sentUnixNs)
+		a.logDiscard(fmt.Errorf("assembler: a fragment in a batch of source %d on %s does not decode; counted malformed", batch.sourceID, msg.Subject))
+	}
 	batch.frags = batch.frags[:0]
 	// Room appears only when crossings are emitted: retry then.
 	if len(a.held) > 0 && a.emitted != a.heldTried {

@@ -78,6 +78,9 @@ type wireBatch struct {
 	sentUnixNs int64
 	endOfRun   bool
 	frags      []*heldFragment
+	// undecodable counts the fragments whose own bytes do not decode (the
+	// batch around them does): they are left out of frags.
+	undecodable int
 }
 
 // fragmentPool hands out heldFragments and finds them again from the
@@ -127,7 +130,9 @@ func (p *fragmentPool) held(f *pb.Fragment) *heldFragment { return p.owner[f] }
 // error every record taken is returned to p and wb holds no fragments. The
 // result equals proto.Unmarshal's: fields it does not know are skipped, as
 // proto keeps them aside; scalar fields repeated on the wire take their
-// last value.
+// last value. One difference: a fragment whose own bytes proto would
+// refuse, in a batch that is otherwise sound, is left out and counted in
+// wb.undecodable, where proto refuses the whole batch.
 func decodeBatch(data []byte, wb *wireBatch, p *fragmentPool) error {
 	*wb = wireBatch{frags: wb.frags[:0]}
 	for len(data) > 0 {
@@ -158,10 +163,14 @@ func decodeBatch(data []byte, wb *wireBatch, p *fragmentPool) error {
 			}
 			data = data[n:]
 			h := p.get()
-			wb.frags = append(wb.frags, h)
 			if err := decodeFragment(raw, h, p); err != nil {
-				return wb.fail(p)
+				// One damaged fragment must not cost its batch the
+				// others: it is counted, they go on.
+				p.put(h)
+				wb.undecodable++
+				continue
 			}
+			wb.frags = append(wb.frags, h)
 		default:
 			n := protowire.ConsumeFieldValue(num, typ, data)
 			if n < 0 {

@@ -134,3 +134,20 @@ func TestStrayEndMarkerDoesNotEndTheRun(t *testing.T) {
 		t.Fatal("the run did not end after both sources' markers")
 	}
 }
+
+// A fragment whose bytes do not decode costs its batch nothing else: it
+// is counted malformed under the batch's source, its siblings go in.
+func TestUndecodableFragmentKeepsItsSiblings(t *testing.T) {
+	a := newTestAssembler(t, builder.Config{Run: 1, Sources: []uint32{1, 2}})
+	m := batchOf(t, 1, false, 10, 20, 30)
+	// A fragments field (5) of two bytes that are not a valid tag.
+	m.Data = append(m.Data, 5<<3|2, 2, 0xff, 0xff)
+	a.mu.Lock()
+	a.takeLocked(m, 1000)
+	s := a.b.Stats()
+	src, _ := a.b.SourceStats(1)
+	a.mu.Unlock()
+	if a.undecoded != 0 || s.Received != 4 || s.Malformed != 1 || src.Malformed != 1 || s.Pending != 3 || !s.Balanced() {
+		t.Fatalf("undecodable batches %d, stats %+v, source 1 %+v: want the batch kept, 3 fragments pending and 1 malformed of source 1", a.undecoded, s, src)
+	}
+}
