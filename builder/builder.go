@@ -381,6 +381,21 @@ func (b *Builder) Flush() {
 	}
 }
 
+// Resume continues a run that another Builder began and ended with Flush,
+// whose closing time (Stats.ClosedNs) was closedNs: every crossing with a
+// nominal time before it counts as decided, so a fragment for one of them
+// is late here rather than the start of a second event of that crossing.
+// Call it before the first Add; it never moves the closing time back. It
+// panics when called from the emit callback.
+func (b *Builder) Resume(closedNs int64) {
+	if b.emitting {
+		panic("builder: Resume called from the emit callback")
+	}
+	if closedNs > b.closed {
+		b.closed = closedNs
+	}
+}
+
 // reject counts f under reason r and returns its error. x is the crossing
 // f was matched to, if any.
 func (b *Builder) reject(f *pb.Fragment, si int, r Reason, x *crossingRef) error {

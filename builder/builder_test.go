@@ -326,3 +326,40 @@ func TestCallbackMustNotReenter(t *testing.T) {
 	}()
 	b.Add(frag(1, 0, 0, 1), 0, 0)
 }
+
+// A Builder that resumes a run after another one flushed it builds each
+// crossing once between them: what the first emitted is late for the
+// second, and the crossings after it are built as usual.
+func TestResumeAfterFlush(t *testing.T) {
+	cfg := Config{Sources: []uint32{1, 2}}
+	first, c1 := newBuilder(t, cfg)
+	for _, f := range []*pb.Fragment{frag(1, 0, 0, 10), frag(2, 0, 0, 10), frag(1, 0, 0, 20)} {
+		if err := first.Add(f, 0, 0); err != nil {
+			t.Fatal(err)
+		}
+	}
+	first.Flush()
+	closed := first.Stats().ClosedNs
+
+	second, c2 := newBuilder(t, cfg)
+	second.Resume(closed)
+	second.Resume(closed - 1000) // never moves back
+	if err := second.Add(frag(2, 0, 0, 20), 0, 0); !errors.Is(err, ErrLate) {
+		t.Fatalf("the rest of a crossing the first builder emitted: %v, want late", err)
+	}
+	for _, f := range []*pb.Fragment{frag(1, 0, 0, 30), frag(2, 0, 0, 30)} {
+		if err := second.Add(f, 0, 0); err != nil {
+			t.Fatal(err)
+		}
+	}
+	seen := map[uint32]int{}
+	for _, ev := range append(c1.take(), c2.take()...) {
+		seen[ev.Bcid]++
+	}
+	if len(seen) != 3 || seen[10] != 1 || seen[20] != 1 || seen[30] != 1 {
+		t.Fatalf("crossings emitted %v, want 10, 20 and 30 once each", seen)
+	}
+	if s := second.Stats(); s.Late != 1 || s.EventsComplete != 1 || !s.Balanced() {
+		t.Fatalf("second builder %+v", s)
+	}
+}

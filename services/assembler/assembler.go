@@ -8,6 +8,7 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"os"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -50,8 +51,13 @@ type Config struct {
 	// cost a quarter more processor time per crossing); with many
 	// crossings per message the batches fill anyway and waiting cost both
 	// latency and throughput (docs/performance.md, "The targets").
-	Linger   time.Duration
-	Subjects transport.Subjects
+	Linger time.Duration
+	// StateFile, if not empty, lets a builder stop and restart within a
+	// run (see Run): an interrupted Run writes where it stopped to this
+	// file, and New resumes from it when it holds the same run and share.
+	// Empty means an interruption ends this builder's part of the run.
+	StateFile string
+	Subjects  transport.Subjects
 	// Logger receives rate-limited reports of discarded fragments; nil
 	// means slog.Default().
 	Logger *slog.Logger
@@ -97,6 +103,7 @@ type Assembler struct {
 	bytesIn     []uint64
 	sourceIndex map[uint32]int
 
+	resumed bool
 	done    chan struct{}
 	ready   chan struct{}
 	dropped atomic.Uint64
@@ -158,8 +165,25 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Assembler, erro
 		return nil, err
 	}
 	a.m = m
+	if cfg.StateFile != "" {
+		st, err := readState(cfg.StateFile)
+		if err != nil {
+			return nil, err
+		}
+		if st != nil {
+			if st.Run != cfg.Builder.Run || st.Instance != cfg.Instance || st.Instances != cfg.Instances {
+				return nil, fmt.Errorf("assembler: state file %s is of run %d, builder %d of %d, not run %d, builder %d of %d: remove it to start afresh",
+					cfg.StateFile, st.Run, st.Instance, st.Instances, cfg.Builder.Run, cfg.Instance, cfg.Instances)
+			}
+			a.b.Resume(st.ClosedNs)
+			a.seq, a.emitted, a.resumed = st.Seq, st.Emitted, true
+		}
+	}
 	return a, nil
 }
+
+// Resumed reports whether New took up a run from its state file.
+func (a *Assembler) Resumed() bool { return a.resumed }
 
 // Run subscribes to this instance's share of the fragments and builds
 // events until every expected source has sent its end-of-run marker (or ctx
@@ -167,6 +191,15 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Assembler, erro
 // end-of-run batch, on the built-event subject and again on the end
 // subject that every selection worker receives. It returns the first
 // publishing error, if any.
+//
+// With Config.StateFile, an end of ctx is a pause: the open crossings are
+// flushed and published, but no end-of-run batch, and the closing time,
+// the batch sequence and the events emitted are written to the state file
+// for the builder that takes over (New). Every crossing is then emitted
+// once by the two together; fragments for crossings the first one emitted
+// count as late in the second, and fragments published while neither runs
+// are lost to core NATS (the readout's own counts show how many). At the
+// end of the run the state file is removed.
 //
 // Fragment batches are taken on Run's own goroutine from a queue of
 // transport.PendingMsgs messages, whatever has queued up (at most
@@ -189,13 +222,13 @@ func (a *Assembler) Run(ctx context.Context) error {
 	defer sub.Unsubscribe()
 	tick := time.NewTicker(a.cfg.Tick)
 	defer tick.Stop()
-	finished := false
+	finished, interrupted := false, false
 	for !finished {
 		select {
 		case msg := <-in:
 			a.receive(msg, in)
 		case <-ctx.Done():
-			finished = true
+			finished, interrupted = true, true
 		case <-a.done:
 			finished = true
 		case <-tick.C:
@@ -224,11 +257,28 @@ func (a *Assembler) Run(ctx context.Context) error {
 	if err := a.publishLocked(false); err != nil {
 		return err
 	}
+	if interrupted && a.cfg.StateFile != "" {
+		// A pause, not the end: the selection is not told the run is
+		// over, and the next builder on this state file takes up where
+		// this one stopped.
+		if err := a.nc.Flush(); err != nil {
+			return fmt.Errorf("assembler: flush: %w", err)
+		}
+		st := builderState{Run: a.cfg.Builder.Run, Instance: a.cfg.Instance, Instances: a.cfg.Instances,
+			ClosedNs: a.b.Stats().ClosedNs, Seq: a.seq, Emitted: a.emitted}
+		return errors.Join(a.pubErr, writeState(a.cfg.StateFile, st))
+	}
 	if err := a.publishLocked(true); err != nil {
 		return err
 	}
 	if err := a.nc.Flush(); err != nil {
 		return fmt.Errorf("assembler: flush: %w", err)
+	}
+	if a.cfg.StateFile != "" && !interrupted {
+		// The run is over: nothing to take up.
+		if err := os.Remove(a.cfg.StateFile); err != nil && !errors.Is(err, os.ErrNotExist) {
+			return errors.Join(a.pubErr, fmt.Errorf("assembler: %w", err))
+		}
 	}
 	return a.pubErr
 }

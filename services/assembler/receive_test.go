@@ -12,6 +12,7 @@ import (
 	"google.golang.org/protobuf/proto"
 
 	"github.com/bunchsieve/bunchsieve/builder"
+	"github.com/bunchsieve/bunchsieve/detector"
 	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
 	"github.com/bunchsieve/bunchsieve/services/emulator"
 	"github.com/bunchsieve/bunchsieve/services/transport"
@@ -50,16 +51,20 @@ func oneCrossingBatches(t *testing.T, crossings uint64) (*sourced, []uint32) {
 	return &c, part.SourceIDs()
 }
 
-// builtWatcher counts the events of every built-event batch.
+// builtWatcher counts the events of every built-event batch, how often
+// each crossing (by absolute slot) was built, and the totals the
+// end-of-run batches announce.
 type builtWatcher struct {
 	mu     sync.Mutex
 	sizes  []int
 	events int
+	counts map[uint64]int
+	ends   []uint64
 }
 
 func watchBuilt(t *testing.T, nc *nats.Conn, s transport.Subjects) *builtWatcher {
 	t.Helper()
-	w := &builtWatcher{}
+	w := &builtWatcher{counts: map[uint64]int{}}
 	if _, err := nc.Subscribe(s.Built(), func(m *nats.Msg) {
 		var b pb.EventBatch
 		if err := proto.Unmarshal(m.Data, &b); err != nil {
@@ -71,6 +76,12 @@ func watchBuilt(t *testing.T, nc *nats.Conn, s transport.Subjects) *builtWatcher
 		if len(b.Events) > 0 {
 			w.sizes = append(w.sizes, len(b.Events))
 			w.events += len(b.Events)
+		}
+		for _, ev := range b.Events {
+			w.counts[ev.Orbit*detector.SlotsPerOrbit+uint64(ev.Bcid)]++
+		}
+		if b.EndOfRun {
+			w.ends = append(w.ends, b.EventsTotal)
 		}
 	}); err != nil {
 		t.Fatal(err)

@@ -215,6 +215,7 @@ func runBuild(ctx context.Context, e *env, args []string) error {
 	url := fs.String("nats", defaultNATS, "NATS server `URL`")
 	instance := fs.Int("instance", 0, "this builder's share, 0..builders-1")
 	instances := fs.Int("builders", 1, "number of builder instances sharing the crossings")
+	state := fs.String("state", "", "state `FILE` for stopping and restarting within a run: on a stop the builder writes where it was, and a builder started on the file takes up from there (default: a stop ends this builder's part of the run)")
 	if err := parse(fs, args, 0); err != nil {
 		return err
 	}
@@ -241,10 +242,13 @@ func runBuild(ctx context.Context, e *env, args []string) error {
 	reg := newRegistry()
 	asm, err := assembler.New(assembler.Config{
 		Builder: cfg.BuilderConfig(sources), Instance: *instance, Instances: *instances,
-		LumiSliceOrbits: cfg.LumiSlice(desc), Subjects: cfg.Subjects(),
+		LumiSliceOrbits: cfg.LumiSlice(desc), Subjects: cfg.Subjects(), StateFile: *state,
 	}, nc, reg)
 	if err != nil {
 		return err
+	}
+	if asm.Resumed() {
+		fmt.Fprintf(e.stderr, "bunchsieve build: taking up run %d where the builder before stopped (%s)\n", cfg.Run, *state)
 	}
 	stop, err := serveMetrics(rf.metrics, reg)
 	if err != nil {
