@@ -322,7 +322,7 @@ func runSelect(ctx context.Context, e *env, args []string) error {
 	s := &summary.Summary{
 		Run: cfg.Run, DurationS: time.Since(start).Seconds(), EventsDecided: sel.Events(), Accepted: sel.Accepted(),
 		Menu: menu.Name, MenuHash: menu.Hash, PrescaleSet: sel.Trigger().PrescaleStatus().Set,
-		Transport: summary.Transport{EventBatchesDropped: sel.DroppedMessages(), EventBatchesUndecodable: sel.UndecodableMessages()},
+		Transport: summary.Transport{EventBatchesDropped: sel.DroppedMessages(), EventBatchesUndecodable: sel.UndecodableMessages(), EventsLost: sel.EventsLost()},
 		Latency:   summary.Latency{EndToEndP50S: sel.EndToEnd.Quantile(0.5).Seconds(), EndToEndP99S: sel.EndToEnd.Quantile(0.99).Seconds(), EndToEndMaxS: sel.EndToEnd.Max().Seconds()},
 	}
 	for _, rc := range sel.Counts() {

@@ -13,6 +13,7 @@ type metrics struct {
 	accepted    prometheus.Counter
 	dropped     prometheus.Counter
 	undecodable prometheus.Counter
+	lost        prometheus.Counter
 }
 
 func newMetrics(reg prometheus.Registerer, s *Selector) (*metrics, error) {
@@ -29,8 +30,9 @@ func newMetrics(reg prometheus.Registerer, s *Selector) (*metrics, error) {
 		accepted:    prometheus.NewCounter(prometheus.CounterOpts{Name: "bunchsieve_selection_events_accepted_total", Help: "Events accepted by at least one rule after prescale."}),
 		dropped:     prometheus.NewCounter(prometheus.CounterOpts{Name: "bunchsieve_selection_batches_dropped_total", Help: "Event batches the NATS client dropped because the selection fell behind (slow consumer)."}),
 		undecodable: prometheus.NewCounter(prometheus.CounterOpts{Name: "bunchsieve_selection_batches_undecodable_total", Help: "Event batches that could not be decoded."}),
+		lost:        prometheus.NewCounter(prometheus.CounterOpts{Name: "bunchsieve_selection_events_lost_total", Help: "Events the builders announced that never reached the selection, given up at the end of the run (counted by worker 0)."}),
 	}
-	for _, c := range []prometheus.Collector{m.latency, m.endToEnd, m.decisions, m.accepted, m.dropped, m.undecodable, &ruleCounts{s: s}} {
+	for _, c := range []prometheus.Collector{m.latency, m.endToEnd, m.decisions, m.accepted, m.dropped, m.undecodable, m.lost, &ruleCounts{s: s}} {
 		if err := reg.Register(c); err != nil {
 			return nil, fmt.Errorf("selector: register metrics: %w", err)
 		}

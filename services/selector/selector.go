@@ -46,7 +46,14 @@ type Config struct {
 	// BatchDecisions is how many decisions one published batch carries at
 	// most; zero means 256.
 	BatchDecisions int
-	Subjects       transport.Subjects
+	// EndWait is how long, once every builder has announced the end of
+	// the run, the worker waits for events still missing from the totals
+	// they announced, counted from the last event decided: past it the
+	// worker ends and counts them lost (EventsLost). Core NATS loses what
+	// is published while a connection is down, so waiting for ever would
+	// hang the run. Zero means 5 s.
+	EndWait  time.Duration
+	Subjects transport.Subjects
 	// Logger receives problems with incoming data; nil means slog.Default().
 	Logger *slog.Logger
 }
@@ -98,6 +105,13 @@ type Selector struct {
 	undecoded atomic.Uint64
 	dropped   atomic.Uint64
 
+	// The wait for events missing at the end (Config.EndWait): the time
+	// every builder had ended or the last event was decided since, the
+	// decided count then, and what was given up for lost.
+	waitSince time.Time
+	waitHave  uint64
+	lost      uint64
+
 	// EndToEnd holds the time from the readout publishing a crossing's
 	// first fragment batch to its decision.
 	EndToEnd telemetry.Latency
@@ -119,6 +133,9 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Selector, error
 	}
 	if cfg.BatchDecisions == 0 {
 		cfg.BatchDecisions = 256
+	}
+	if cfg.EndWait == 0 {
+		cfg.EndWait = 5 * time.Second
 	}
 	if cfg.Logger == nil {
 		cfg.Logger = slog.Default()
@@ -234,6 +251,7 @@ loop:
 			if err == nil {
 				err = s.reportLocked(false)
 			}
+			s.giveUpLocked(time.Now())
 			s.mu.Unlock()
 			if err != nil {
 				return err
@@ -330,30 +348,73 @@ func (s *Selector) reportLocked(force bool) error {
 	return nil
 }
 
+// progressLocked reports whether every builder has ended, the events they
+// announced in all, and how many of those are decided: by this worker
+// alone, or with more than one worker by all of them together.
+func (s *Selector) progressLocked() (ended bool, want, have uint64) {
+	if s.cfg.Workers <= 1 {
+		return s.ends >= s.cfg.Builders, s.expected, s.seen
+	}
+	for _, n := range s.builderEnds {
+		want += n
+	}
+	have = s.seen
+	for _, n := range s.others {
+		have += n
+	}
+	return len(s.builderEnds) >= s.cfg.Builders, want, have
+}
+
 // checkFinishedLocked ends the run once every builder has ended and every
-// event it emitted is decided: by this worker alone, or with more than one
-// worker by all of them together.
+// event it emitted is decided.
 func (s *Selector) checkFinishedLocked() {
-	done := s.ends >= s.cfg.Builders && s.seen >= s.expected
-	if s.cfg.Workers > 1 {
-		var want, have uint64
-		for _, n := range s.builderEnds {
-			want += n
-		}
-		have = s.seen
-		for _, n := range s.others {
-			have += n
-		}
-		done = len(s.builderEnds) >= s.cfg.Builders && have >= want
+	if ended, want, have := s.progressLocked(); ended && have >= want {
+		s.finishLocked()
 	}
-	if !done {
-		return
-	}
+}
+
+func (s *Selector) finishLocked() {
 	select {
 	case <-s.finished:
 	default:
 		close(s.finished)
 	}
+}
+
+// giveUpLocked ends the run when every builder has ended but events they
+// announced are still missing and none has been decided for EndWait: they
+// were lost on the way (Config.EndWait). With more than one worker, worker
+// 0 counts them, so that the workers' counts add up.
+func (s *Selector) giveUpLocked(now time.Time) {
+	ended, want, have := s.progressLocked()
+	if !ended || have >= want {
+		s.waitSince = time.Time{}
+		return
+	}
+	if s.waitSince.IsZero() || have != s.waitHave {
+		s.waitSince, s.waitHave = now, have
+		return
+	}
+	if now.Sub(s.waitSince) < s.cfg.EndWait {
+		return
+	}
+	if s.cfg.Worker == 0 {
+		s.lost = want - have
+		s.m.lost.Add(float64(s.lost))
+	}
+	s.log.Warn("events announced by the builders never arrived; ending the run without them",
+		"missing", want-have, "waited", s.cfg.EndWait)
+	s.finishLocked()
+}
+
+// EventsLost returns how many events the builders announced that no
+// worker decided, given up for lost at the end of the run (Config.EndWait;
+// with more than one worker, counted by worker 0 only). It is safe for
+// concurrent use.
+func (s *Selector) EventsLost() uint64 {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.lost
 }
 
 // decideBatch decides every event of an encoded event batch. The events

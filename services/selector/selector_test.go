@@ -155,3 +155,39 @@ func embeddedSelectorConn(t *testing.T) *nats.Conn {
 	t.Cleanup(nc.Close)
 	return nc
 }
+
+// Once every builder has announced the end of the run, events still
+// missing from their totals are waited for EndWait after the last event
+// decided, then given up for lost: the run ends instead of hanging.
+func TestMissingEventsGivenUpAfterEndWait(t *testing.T) {
+	for _, worker := range []int{0, 1} {
+		s := newTestSelector(t, nil, Config{EndWait: 5 * time.Second, Worker: worker, Workers: 2})
+		t0 := time.Unix(1000, 0)
+		s.mu.Lock()
+		s.builderEnds[0] = 10 // one builder announced 10 events
+		s.seen, s.others[1-worker] = 4, 3
+		s.giveUpLocked(t0)
+		s.giveUpLocked(t0.Add(4 * time.Second))
+		s.seen++ // an event decided late restarts the wait
+		s.giveUpLocked(t0.Add(4500 * time.Millisecond))
+		s.giveUpLocked(t0.Add(9 * time.Second))
+		s.mu.Unlock()
+		select {
+		case <-s.finished:
+			t.Fatalf("worker %d: ended before EndWait had passed since the last decision", worker)
+		default:
+		}
+		s.mu.Lock()
+		s.giveUpLocked(t0.Add(9600 * time.Millisecond))
+		s.mu.Unlock()
+		select {
+		case <-s.finished:
+		default:
+			t.Fatalf("worker %d: still waiting after EndWait", worker)
+		}
+		// Worker 0 counts the events missing from all workers together.
+		if want := map[int]uint64{0: 2, 1: 0}[worker]; s.EventsLost() != want {
+			t.Fatalf("worker %d counted %d lost, want %d", worker, s.EventsLost(), want)
+		}
+	}
+}

@@ -258,7 +258,7 @@ func (c *Chain) summary() *summary.Summary {
 		},
 		Transport: summary.Transport{
 			FragmentBatchesDropped: c.asm.DroppedMessages(), EventBatchesDropped: c.sel.DroppedMessages(),
-			FragmentBatchesUndecodable: c.asm.UndecodableMessages(), EventBatchesUndecodable: c.sel.UndecodableMessages(),
+			FragmentBatchesUndecodable: c.asm.UndecodableMessages(), EventBatchesUndecodable: c.sel.UndecodableMessages(), EventsLost: c.sel.EventsLost(),
 		},
 		Accepted: c.sel.Accepted(),
 		Latency: summary.Latency{

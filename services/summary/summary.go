@@ -66,6 +66,9 @@ type Transport struct {
 	EventBatchesDropped        uint64 `json:"event_batches_dropped"`
 	FragmentBatchesUndecodable uint64 `json:"fragment_batches_undecodable"`
 	EventBatchesUndecodable    uint64 `json:"event_batches_undecodable"`
+	// EventsLost counts events the builders announced that never reached
+	// the selection (lost while a NATS connection was down, say).
+	EventsLost uint64 `json:"events_lost"`
 }
 
 // Rule is one rule's counts. Accepted == Passed / Prescale rounded down
@@ -107,8 +110,8 @@ func (s *Summary) Print(w io.Writer) {
 	fmt.Fprintln(w, s.Fragments)
 	t := s.Transport
 	if t != (Transport{}) {
-		fmt.Fprintf(w, "transport losses: fragment batches dropped %d, event batches dropped %d, undecodable %d+%d\n",
-			t.FragmentBatchesDropped, t.EventBatchesDropped, t.FragmentBatchesUndecodable, t.EventBatchesUndecodable)
+		fmt.Fprintf(w, "transport losses: fragment batches dropped %d, event batches dropped %d, undecodable %d+%d, events lost %d\n",
+			t.FragmentBatchesDropped, t.EventBatchesDropped, t.FragmentBatchesUndecodable, t.EventBatchesUndecodable, t.EventsLost)
 	}
 	fmt.Fprintf(w, "latency: build p50 %s p99 %s; end to end p50 %s p99 %s max %s\n",
 		ms(s.Latency.BuildP50S), ms(s.Latency.BuildP99S), ms(s.Latency.EndToEndP50S), ms(s.Latency.EndToEndP99S), ms(s.Latency.EndToEndMaxS))
@@ -133,8 +136,8 @@ func (s *Summary) PrintBuild(w io.Writer) {
 func (s *Summary) PrintSelection(w io.Writer) {
 	fmt.Fprintf(w, "run %d  %.2f s\n", s.Run, s.DurationS)
 	fmt.Fprintf(w, "decided %d (%.0f/s)  accepted %d (%.1f/s)\n", s.EventsDecided, s.rate(s.EventsDecided), s.Accepted, s.rate(s.Accepted))
-	if t := s.Transport; t.EventBatchesDropped != 0 || t.EventBatchesUndecodable != 0 {
-		fmt.Fprintf(w, "transport losses: event batches dropped %d, undecodable %d\n", t.EventBatchesDropped, t.EventBatchesUndecodable)
+	if t := s.Transport; t.EventBatchesDropped != 0 || t.EventBatchesUndecodable != 0 || t.EventsLost != 0 {
+		fmt.Fprintf(w, "transport losses: event batches dropped %d, undecodable %d, events lost %d\n", t.EventBatchesDropped, t.EventBatchesUndecodable, t.EventsLost)
 	}
 	fmt.Fprintf(w, "latency: end to end p50 %s p99 %s max %s\n", ms(s.Latency.EndToEndP50S), ms(s.Latency.EndToEndP99S), ms(s.Latency.EndToEndMaxS))
 	s.printMenu(w)
