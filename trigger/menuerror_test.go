@@ -25,6 +25,17 @@ var badMenus = []struct {
 	{"yaml colon in a plain value",
 		goodHead + "rules:\n  met-120: {when: \"met > 120 GeV\"}\n  b: when: x\n",
 		5, 10, "", "mapping values are not allowed", "well-formed YAML"},
+	// The YAML library names the line where the mapping began; the
+	// position given is the line indented to no level of it.
+	{"yaml key indented too little",
+		goodHead + "rules:\n  a: {when: \"met > 1 GeV\"}\n b: {when: \"met > 2 GeV\"}\n",
+		5, 2, "", "indentation, 1 space, matches no level", "indented as the other keys"},
+	{"yaml key indented too far",
+		goodHead + "rules:\n  a: {when: \"met > 1 GeV\"}\n   b: {when: \"met > 2 GeV\"}\n",
+		5, 4, "", "indentation, 3 spaces, matches no level", "indented as the other keys"},
+	{"yaml key indented too far after a flow mapping over two lines",
+		goodHead + "rules:\n  a: {when: \"met > 1 GeV\",\n      prescale: 2}  # two lines\n   b: {when: \"met > 2 GeV\"}\n",
+		6, 4, "", "indentation, 3 spaces, matches no level", "indented as the other keys"},
 	{"yaml tab indentation",
 		goodHead + "rules:\n\tmet-120: {when: \"met > 120 GeV\"}\n",
 		4, 1, "", "YAML error", "well-formed YAML"},

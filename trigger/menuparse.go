@@ -630,10 +630,117 @@ func (mp *menuParser) yamlError(err error) *MenuError {
 			}
 		}
 	}
+	if problem == "did not find expected key" {
+		// The library names the line where the mapping it was reading
+		// began; what it met is usually a line further down indented to
+		// no level of the mappings above it.
+		if l := mp.misindented(line); l > 0 {
+			// The line the library gives may be the offending one itself.
+			text := mp.lineText(l)
+			ind := len(text) - len(strings.TrimLeft(text, " "))
+			return &MenuError{File: mp.src.file, Line: l, Col: ind + 1,
+				Found:    fmt.Sprintf("YAML error: did not find expected key: this line's indentation, %s, matches no level of the mapping that begins on line %d", spaces(ind), line),
+				Expected: "a key indented as the other keys of its mapping"}
+		}
+	}
 	if col < 0 {
 		col = len(text) - len(strings.TrimLeft(text, " \t"))
 	}
 	return &MenuError{File: mp.src.file, Line: line, Col: runeCol(text, col), Found: "YAML error: " + problem, Expected: "well-formed YAML"}
+}
+
+// misindented returns the first line, at or after line from, whose
+// indentation fits no open block level above it: deeper than the line
+// before though that line opens no block, or shallower than it but at no
+// level still open. The levels are followed from the top of the file.
+// Lines inside a flow collection or a quoted string that spans lines, and
+// the lines of a block scalar, are passed over. It returns 0 when every
+// line fits (the YAML error is then of another kind).
+func (mp *menuParser) misindented(from int) int {
+	var levels []int // indentations of the open block levels
+	prev, opens := -1, false
+	depth, quote := 0, byte(0) // open flow brackets and quote across lines
+	scalar := -1               // indentation of a block scalar's key, while in it
+	for l := 1; l <= len(mp.src.lines); l++ {
+		text := mp.lineText(l)
+		trimmed := strings.TrimLeft(text, " ")
+		ind := len(text) - len(trimmed)
+		if trimmed == "" || (depth == 0 && quote == 0 && trimmed[0] == '#') {
+			continue
+		}
+		if scalar >= 0 {
+			if ind > scalar {
+				continue
+			}
+			scalar = -1
+		}
+		inside := depth > 0 || quote != 0
+		var comment int
+		depth, quote, comment = scanLine(trimmed, depth, quote)
+		if inside {
+			continue
+		}
+		switch {
+		case prev < 0:
+			levels = []int{ind}
+		case ind > prev:
+			if !opens && l >= from {
+				return l
+			}
+			levels = append(levels, ind)
+		case ind < prev:
+			for len(levels) > 0 && levels[len(levels)-1] > ind {
+				levels = levels[:len(levels)-1]
+			}
+			if len(levels) == 0 || levels[len(levels)-1] != ind {
+				if l >= from {
+					return l
+				}
+				levels = append(levels, ind)
+			}
+		}
+		prev = ind
+		body := strings.TrimRight(trimmed[:comment], " ")
+		opens = strings.HasSuffix(body, ":") || strings.HasPrefix(trimmed, "- ") || trimmed == "-"
+		if strings.HasSuffix(body, "|") || strings.HasSuffix(body, ">") || strings.HasSuffix(body, "|-") || strings.HasSuffix(body, ">-") {
+			scalar = ind
+		}
+	}
+	return 0
+}
+
+// spaces says n spaces in words.
+func spaces(n int) string {
+	if n == 1 {
+		return "1 space"
+	}
+	return fmt.Sprintf("%d spaces", n)
+}
+
+// scanLine follows line from the flow-bracket depth and open quote (0
+// for none) before it, and returns those after it and where a comment
+// outside quotes starts (len(line) for none).
+func scanLine(line string, depth int, quote byte) (int, byte, int) {
+	for i := 0; i < len(line); i++ {
+		c := line[i]
+		switch {
+		case quote == '"' && c == '\\':
+			i++
+		case quote != 0:
+			if c == quote {
+				quote = 0
+			}
+		case c == '"' || c == '\'':
+			quote = c
+		case c == '#' && (i == 0 || line[i-1] == ' '):
+			return depth, quote, i
+		case c == '{' || c == '[':
+			depth++
+		case (c == '}' || c == ']') && depth > 0:
+			depth--
+		}
+	}
+	return depth, quote, len(line)
 }
 
 // isParserProblem reports the YAML errors that come from the parser (whose
