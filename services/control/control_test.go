@@ -2,7 +2,10 @@ package control
 
 import (
 	"context"
+	"fmt"
+	"google.golang.org/grpc/metadata"
 	"io/fs"
+	"math"
 	"net"
 	"strings"
 	"testing"
@@ -209,6 +212,29 @@ func TestRunControlOverGRPC(t *testing.T) {
 		t.Fatalf("the new menu took set %q, want the chosen %q", st.PrescaleSet, "quiet")
 	}
 
+	// A set chosen while a new menu waits is the new menu's: one it lacks
+	// is refused, one it has goes in with it.
+	tiny := "menu: tiny\nversion: 1\nrules:\n  met-50: {when: \"met > 50 GeV\"}\nprescale_sets:\n  calm: {met-50: 3}\n"
+	if st, err = c.LoadMenu(ctx, &pb.LoadMenuRequest{Menu: tiny}); err != nil {
+		t.Fatal(err)
+	}
+	hash1 := st.MenuHash
+	_, err = c.SetPrescaleSet(ctx, &pb.SetPrescaleSetRequest{PrescaleSet: "quiet"})
+	wantCode(t, err, codes.InvalidArgument, "a set the waiting menu lacks")
+	if _, err = c.SetPrescaleSet(ctx, &pb.SetPrescaleSetRequest{PrescaleSet: "calm"}); err != nil {
+		t.Fatalf("the waiting menu's set: %v", err)
+	}
+	for st.MenuName != "tiny" {
+		if time.Now().After(deadline.Add(60 * time.Second)) {
+			t.Fatalf("tiny never switched in: %v (was %s)", st, hash1)
+		}
+		time.Sleep(20 * time.Millisecond)
+		st, _ = c.Status(ctx, &pb.StatusRequest{})
+	}
+	if st.PrescaleSet != "calm" || st.UptimeS <= 0 {
+		t.Fatalf("after the switch: set %q, uptime %v s; want calm and the run's time", st.PrescaleSet, st.UptimeS)
+	}
+
 	// Stop drains, then the run is over and the run number moves on.
 	if st, err = c.Stop(ctx, &pb.StopRequest{}); err != nil {
 		t.Fatal(err)
@@ -220,5 +246,35 @@ func TestRunControlOverGRPC(t *testing.T) {
 	st = waitPhase(t, c, pb.RunPhase_RUN_PHASE_READY)
 	if st.Run != 43 || st.Crossings == 0 || st.EventsBuilt != st.Crossings {
 		t.Fatalf("after stop: %v", st)
+	}
+
+	// Configuring again keeps what the request leaves out: the next run
+	// number, the menu and its set; a duration must be a real one.
+	if st, err = c.Configure(ctx, &pb.ConfigureRequest{RateHz: 15000}); err != nil {
+		t.Fatal(err)
+	}
+	if st.Run != 43 || st.MenuName != "tiny" || st.PrescaleSet != "calm" || st.UptimeS != 0 {
+		t.Fatalf("configure after a run: %v; want run 43, menu tiny, set calm, no uptime", st)
+	}
+	for _, d := range []float64{math.NaN(), math.Inf(1), 1e300, -1} {
+		_, err = c.Configure(ctx, &pb.ConfigureRequest{DurationS: d})
+		wantCode(t, err, codes.InvalidArgument, fmt.Sprintf("duration %g s", d))
+	}
+}
+
+// The token's scheme is matched without regard to case (RFC 7235,
+// section 2.1), and the token itself exactly.
+func TestBearerSchemeAnyCase(t *testing.T) {
+	a := &auth{token: []byte(token)}
+	method := pb.RunControl_Start_FullMethodName
+	for _, tc := range []struct {
+		header string
+		ok     bool
+	}{{"Bearer " + token, true}, {"bearer " + token, true}, {"BEARER " + token, true},
+		{"Bearer " + token + "x", false}, {"Basic " + token, false}, {token, false}, {"Bearer", false}} {
+		ctx := metadata.NewIncomingContext(context.Background(), metadata.Pairs("authorization", tc.header))
+		if err := a.check(ctx, method); (err == nil) != tc.ok {
+			t.Errorf("authorization %q: %v, want accepted %v", tc.header, err, tc.ok)
+		}
 	}
 }

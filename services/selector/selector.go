@@ -190,6 +190,19 @@ func (s *Selector) LoadMenu(m *trigger.Menu, prescaleSet string) error {
 	return nil
 }
 
+// SetPrescaleSet chooses the prescale set from the next lumi slice on (as
+// trigger.Selector.SetPrescaleSet does), of the menu waiting for that
+// slice if LoadMenu left one waiting, else of the menu in force. It is
+// safe for concurrent use.
+func (s *Selector) SetPrescaleSet(name string) error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.pending != nil {
+		return s.pending.SetPrescaleSet(name)
+	}
+	return s.sel.Load().SetPrescaleSet(name)
+}
+
 // PendingMenu returns the hash of a menu waiting for the next lumi slice
 // and the slice after which it takes effect, or "" if none waits.
 func (s *Selector) PendingMenu() (hash string, after uint32) {

@@ -97,15 +97,16 @@ type Status struct {
 	Crossings          uint64
 	EventsBuilt        uint64
 	Accepted           uint64
-	Uptime             time.Duration
-	Detail             string
+	// Uptime is how long the current run has been flowing and draining;
+	// zero outside a run.
+	Uptime time.Duration
+	Detail string
 }
 
 // Controller steers runs on a host: configure, start, stop, swap menus and
 // prescale sets. It is safe for concurrent use.
 type Controller struct {
-	host    *Host
-	started time.Time
+	host *Host
 
 	mu       sync.Mutex
 	phase    Phase
@@ -119,7 +120,7 @@ type Controller struct {
 
 // NewController returns a controller in phase idle on host.
 func NewController(host *Host) *Controller {
-	c := &Controller{host: host, phase: Idle, started: time.Now()}
+	c := &Controller{host: host, phase: Idle}
 	host.run.set(func() runState {
 		st := c.Status()
 		rs := runState{phase: st.Phase.String(), run: st.Run}
@@ -158,6 +159,14 @@ func (c *Controller) Configure(s RunSettings) error {
 	return nil
 }
 
+// Settings returns the next run's settings, and false while none are
+// configured (idle). It is safe for concurrent use.
+func (c *Controller) Settings() (RunSettings, bool) {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	return c.settings, c.phase != Idle
+}
+
 func checkSet(m *trigger.Menu, set string) error {
 	if set == "" {
 		return nil
@@ -176,13 +185,19 @@ func (c *Controller) Start() error {
 		return &TransitionError{Op: "start", Phase: c.phase}
 	}
 	s := c.settings
+	// Refuse before the new run's metrics replace the last run's.
+	if err := checkSet(s.Menu, s.PrescaleSet); err != nil {
+		return err
+	}
 	chain, err := c.host.NewChain(ChainOptions{Run: s.Run, Menu: s.Menu, Crossings: s.Crossings, Duration: s.Duration})
 	if err != nil {
+		c.reattach()
 		return fmt.Errorf("stack: %w: %v", ErrInvalid, err)
 	}
 	if s.PrescaleSet != "" {
 		if err := chain.Selector().Trigger().SetPrescaleSet(s.PrescaleSet); err != nil {
 			chain.Close()
+			c.reattach()
 			return fmt.Errorf("stack: %w: %v", ErrInvalid, err)
 		}
 	}
@@ -190,9 +205,17 @@ func (c *Controller) Start() error {
 		c.chain.Close()
 	}
 	ctx, cancel := context.WithCancel(context.Background())
-	c.chain, c.stop, c.done, c.phase = chain, cancel, make(chan struct{}), Flowing
+	c.chain, c.stop, c.done, c.phase, c.detail = chain, cancel, make(chan struct{}), Flowing, ""
 	go c.run(chain, ctx, c.done)
 	return nil
+}
+
+// reattach puts the last run's metrics back on the host after a start
+// that failed once the new run's had replaced them. Called with c.mu held.
+func (c *Controller) reattach() {
+	if c.chain != nil {
+		c.host.attach(c.chain.reg)
+	}
 }
 
 func (c *Controller) run(chain *Chain, ctx context.Context, done chan struct{}) {
@@ -293,7 +316,9 @@ func (c *Controller) SetPrescaleSet(name string) error {
 	case Idle, Draining:
 		return &TransitionError{Op: "choose a prescale set", Phase: c.phase}
 	case Flowing:
-		if err := c.chain.Selector().Trigger().SetPrescaleSet(name); err != nil {
+		// With a new menu waiting, the set is the new menu's, which takes
+		// over at the same boundary.
+		if err := c.chain.Selector().SetPrescaleSet(name); err != nil {
 			return fmt.Errorf("stack: %w: %v", ErrInvalid, err)
 		}
 	default:
@@ -309,12 +334,13 @@ func (c *Controller) SetPrescaleSet(name string) error {
 func (c *Controller) Status() Status {
 	c.mu.Lock()
 	defer c.mu.Unlock()
-	st := Status{Phase: c.phase, Run: c.settings.Run.Run, Detail: c.detail, Uptime: time.Since(c.started)}
+	st := Status{Phase: c.phase, Run: c.settings.Run.Run, Detail: c.detail}
 	if m := c.settings.Menu; m != nil {
 		st.MenuName, st.MenuHash, st.PrescaleSet = m.Name, m.Hash, c.settings.PrescaleSet
 	}
 	if c.chain != nil && (c.phase == Flowing || c.phase == Draining) {
 		st.Run = c.chain.Config().Run
+		st.Uptime = c.chain.Elapsed()
 		sel := c.chain.Selector()
 		t := sel.Trigger()
 		ps := t.PrescaleStatus()
