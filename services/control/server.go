@@ -98,8 +98,9 @@ func (a *auth) check(ctx context.Context, method string) error {
 	}
 	md, _ := metadata.FromIncomingContext(ctx)
 	for _, v := range md.Get("authorization") {
-		tok, ok := strings.CutPrefix(v, "Bearer ")
-		if ok && subtle.ConstantTimeCompare([]byte(tok), a.token) == 1 {
+		// The scheme is case-insensitive (RFC 7235, section 2.1).
+		scheme, tok, ok := strings.Cut(v, " ")
+		if ok && strings.EqualFold(scheme, "Bearer") && subtle.ConstantTimeCompare([]byte(tok), a.token) == 1 {
 			return nil
 		}
 	}
@@ -168,7 +169,12 @@ func code(err error) error {
 // Configure sets up the next run over the server's base configuration;
 // zero fields keep the base values.
 func (s *Server) Configure(_ context.Context, req *pb.ConfigureRequest) (*pb.RunStatus, error) {
-	rc := s.base
+	// What the request leaves out keeps what the controller has: the next
+	// run's number (never one used already), the menu and the set chosen.
+	rc, cur := s.base, stack.RunSettings{}
+	if c, ok := s.ctl.Settings(); ok {
+		rc, cur = c.Run, c
+	}
 	if req.Run != 0 {
 		rc.Run = req.Run
 	}
@@ -181,23 +187,37 @@ func (s *Server) Configure(_ context.Context, req *pb.ConfigureRequest) (*pb.Run
 	if req.Seed != 0 {
 		rc.Seed = req.Seed
 	}
-	settings := stack.RunSettings{Run: rc, PrescaleSet: req.PrescaleSet, Crossings: req.Crossings}
-	if req.DurationS < 0 || req.RateHz < 0 {
-		return nil, status.Error(codes.InvalidArgument, "control: duration and rate must not be negative")
+	settings := stack.RunSettings{Run: rc, Menu: cur.Menu, PrescaleSet: cur.PrescaleSet, Crossings: cur.Crossings, Duration: cur.Duration}
+	// A duration beyond a year is a mistake, and NaN or one past 292
+	// years would overflow time.Duration.
+	if !(req.DurationS >= 0 && req.DurationS <= maxDurationS) || !(req.RateHz >= 0) {
+		return nil, status.Errorf(codes.InvalidArgument, "control: duration %g s and rate %g Hz: want 0 <= duration <= %g s and a rate >= 0", req.DurationS, req.RateHz, float64(maxDurationS))
 	}
-	settings.Duration = time.Duration(req.DurationS * float64(time.Second))
+	if req.Crossings != 0 {
+		settings.Crossings = req.Crossings
+	}
+	if req.DurationS != 0 {
+		settings.Duration = time.Duration(req.DurationS * float64(time.Second))
+	}
 	if req.Menu != "" {
 		m, err := trigger.ParseMenu("menu sent by run control", []byte(req.Menu))
 		if err != nil {
 			return nil, status.Error(codes.InvalidArgument, err.Error())
 		}
-		settings.Menu = m
+		// A new menu starts in its own active set unless told otherwise.
+		settings.Menu, settings.PrescaleSet = m, ""
+	}
+	if req.PrescaleSet != "" {
+		settings.PrescaleSet = req.PrescaleSet
 	}
 	if err := s.ctl.Configure(settings); err != nil {
 		return nil, code(err)
 	}
 	return s.status(), nil
 }
+
+// maxDurationS bounds ConfigureRequest.duration_s: a year.
+const maxDurationS = 365 * 24 * 3600
 
 // Start begins the configured run.
 func (s *Server) Start(context.Context, *pb.StartRequest) (*pb.RunStatus, error) {
