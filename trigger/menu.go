@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"os"
 	"strings"
+	"unicode/utf8"
 )
 
 // BaseSet is the name of the prescale set that every menu has: the rules'
@@ -118,6 +119,20 @@ func (m *Menu) SetNames() []string {
 	return names
 }
 
+// clipName shortens a name to quote in an error: a name sent from outside
+// may be any length, and is echoed into logs.
+func clipName(s string) string {
+	const most = 64
+	if len(s) <= most {
+		return s
+	}
+	cut := most
+	for cut > 0 && !utf8.RuneStart(s[cut]) {
+		cut--
+	}
+	return s[:cut] + fmt.Sprintf("... (%d bytes)", len(s))
+}
+
 // Prescales returns the prescale of every rule, in menu order, under the
 // named set: 0 means off. Disabled rules get 0 too.
 func (m *Menu) Prescales(set string) ([]int, error) {
@@ -129,7 +144,7 @@ func (m *Menu) Prescales(set string) ([]int, error) {
 			}
 		}
 		if ps == nil {
-			return nil, fmt.Errorf("%w %q (the menu has %s)", ErrUnknownPrescaleSet, set, strings.Join(m.SetNames(), ", "))
+			return nil, fmt.Errorf("%w %q (the menu has %s)", ErrUnknownPrescaleSet, clipName(set), strings.Join(m.SetNames(), ", "))
 		}
 	}
 	out := make([]int, len(m.Rules))

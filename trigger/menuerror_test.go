@@ -4,6 +4,7 @@ import (
 	"errors"
 	"strings"
 	"testing"
+	"unicode/utf8"
 )
 
 const goodHead = "menu: m\nversion: 1\n"
@@ -242,5 +243,22 @@ func TestMenuErrorFormat(t *testing.T) {
 func TestLoadMenuMissingFile(t *testing.T) {
 	if _, err := LoadMenu(t.TempDir() + "/none.yaml"); err == nil || !strings.HasPrefix(err.Error(), "trigger: ") {
 		t.Fatalf("err %v, want a trigger: error", err)
+	}
+}
+
+// A prescale set name sent from outside is quoted shortened in the error,
+// which ends up in logs, and a cut never splits a character.
+func TestUnknownSetNameClipped(t *testing.T) {
+	m, err := ParseMenu("m.yaml", []byte(goodHead+"rules:\n  a: {when: \"met > 1 GeV\"}\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	long := strings.Repeat("é", 60000)
+	_, err = m.Prescales(long)
+	if !errors.Is(err, ErrUnknownPrescaleSet) || len(err.Error()) > 200 || !strings.Contains(err.Error(), "(120000 bytes)") {
+		t.Fatalf("error of %d bytes: %.200s", len(err.Error()), err)
+	}
+	if !utf8.ValidString(err.Error()) {
+		t.Fatal("the shortened name splits a character")
 	}
 }
