@@ -29,6 +29,25 @@ func TestPageInBrowser(t *testing.T) {
 	if got := p.Text(t, "#menu"); got != "lantern-starter" {
 		t.Errorf("menu shows %q", got)
 	}
+	// A note on the last run, shown while the next flows, is not styled
+	// as a failure (only the faulted phase is).
+	var note struct {
+		Hidden      bool   `json:"hidden"`
+		Colour      string `json:"colour"`
+		FaultColour string `json:"fault_colour"`
+	}
+	p.Eval(t, `(() => {
+		const d = document.getElementById("detail");
+		const f = document.createElement("p");
+		f.className = "detail fault";
+		document.body.appendChild(f);
+		const out = {hidden: d.hidden, colour: getComputedStyle(d).color, fault_colour: getComputedStyle(f).color};
+		f.remove();
+		return out;
+	})()`, &note)
+	if note.Hidden || note.Colour == note.FaultColour {
+		t.Errorf("the note on the last run: %+v, want it shown, not in the colour of a failure", note)
+	}
 	var names []string
 	p.Eval(t, `[...document.querySelectorAll("#rules tbody tr")].map(r => r.querySelector("td.name").textContent)`, &names)
 	var want []string

@@ -30,7 +30,7 @@ func (f *fakeRun) Snapshot() web.Snapshot {
 	n := float64(f.calls.Add(1))
 	wobble := 1 + 0.35*math.Sin(n/1.7) // changes at every call
 	s := web.Snapshot{
-		Phase: web.PhaseFlowing, Run: 417, LumiSlice: 3 + uint32(n/20), PrescaleSet: "nominal",
+		Phase: web.PhaseFlowing, Detail: "run 416 ended: 90000 crossings", Run: 417, LumiSlice: 3 + uint32(n/20), PrescaleSet: "nominal",
 		Menu: "lantern-starter", MenuHash: "5c6cab9fe4ed60f1", UptimeS: 61 + n,
 		CrossingsHz: 5000 * (1 + 0.02*math.Sin(n)), BuiltHz: 4990 * (1 + 0.02*math.Sin(n)),
 		IncompleteFraction: 0.004 * wobble,

@@ -120,6 +120,8 @@
     const d = $("detail");
     d.hidden = !s.detail;
     d.textContent = s.detail || "";
+    // A note on the last run reads as a note; only a failure is an alarm.
+    d.className = phase === "faulted" ? "detail fault" : "detail";
   }
 
   function renderFlows(s) {
