@@ -162,7 +162,10 @@ func measureBaseline(ctx context.Context, nw *Network, ds *Dataset, s transport.
 		if done || dropped > 0 {
 			break
 		}
-		if time.Now().After(deadline) || ctx.Err() != nil {
+		if ctx.Err() != nil {
+			return nil, fmt.Errorf("loadtest: baseline: %w", ctx.Err())
+		}
+		if time.Now().After(deadline) {
 			return nil, errors.New("loadtest: baseline messages did not all arrive within a minute")
 		}
 		time.Sleep(time.Millisecond)

@@ -62,7 +62,9 @@ type FeedStats struct {
 	// Laps is how many passes over the dataset the run took (a started
 	// pass counts).
 	Laps uint64
-	// First and Last are the times of the first and last batch publish.
+	// First is when the feed started, the zero of its schedule (the first
+	// batch goes out then, or when it falls due); Last is the time of the
+	// last batch publish.
 	First, Last time.Time
 	// Behind is the largest lag behind schedule beyond the feed's Tick, a
 	// sign that the publisher itself could not keep the rate.

@@ -17,15 +17,7 @@ import (
 // Tick, stamps every batch with a time at or after its due time, and
 // offers every batch once, in order.
 func TestFeedNeverEarly(t *testing.T) {
-	ds, err := Generate(GenerateConfig{Crossings: 400, BatchCrossings: 1, Seed: 3})
-	if err != nil {
-		t.Fatal(err)
-	}
-	nw, err := Embedded()
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(nw.Close)
+	ds, nw := testRig(t, GenerateConfig{Crossings: 400, BatchCrossings: 1, Seed: 3})
 	const rate = 20_000.0
 	for _, tick := range []time.Duration{-1, 0, time.Millisecond} {
 		s := transport.Subjects{Prefix: "feedtest"}

@@ -11,6 +11,7 @@ import (
 	"runtime"
 	"runtime/debug"
 	"sort"
+	"strings"
 	"time"
 
 	"github.com/bunchsieve/bunchsieve/services/runconfig"
@@ -249,11 +250,12 @@ func Run(ctx context.Context, cfg Config) (*Report, error) {
 			}
 		}
 	}
+	// No ratio against a baseline whose every run dropped messages.
 	if s := rep.Saturation; s != nil {
-		if b := rep.Baseline; b != nil && b.CrossingsPerS > 0 {
+		if b := rep.Baseline; b != nil && b.CrossingsPerS > 0 && b.Dropped == 0 {
 			rep.Ratio = s.EventsPerS / b.CrossingsPerS
 		}
-		if b := rep.Relay; b != nil && b.CrossingsPerS > 0 {
+		if b := rep.Relay; b != nil && b.CrossingsPerS > 0 && b.Dropped == 0 {
 			rep.RelayRatio = s.EventsPerS / b.CrossingsPerS
 		}
 	}
@@ -262,6 +264,9 @@ func Run(ctx context.Context, cfg Config) (*Report, error) {
 		rep.Machine.AvailableCoresAfter = availableCores(time.Second)
 	}
 	h.progressDone()
+	if runErr == nil && ctx.Err() != nil {
+		runErr = fmt.Errorf("loadtest: interrupted; the report covers the steps run so far: %w", ctx.Err())
+	}
 	return rep, runErr
 }
 
@@ -319,10 +324,19 @@ func (h *harness) step(ctx context.Context, rateHz float64, index int, n uint64)
 		}
 	}
 	res := p.run(ctx, crossings, rateHz, cfg.Drain, cfg.KeepMemory, cfg.MemoryEvery, progress)
-	st := Step{OfferedHz: rateHz, Laps: res.feed.Laps}
+	st := Step{OfferedHz: rateHz, Laps: res.feed.Laps, CrossingsPlanned: crossings, FeedBehindMs: res.feed.Behind.Seconds() * 1e3}
 	st.Account = p.accounting(res.feed)
-	if res.err != nil {
+	switch {
+	case res.err != nil:
 		st.Error = res.err.Error()
+	case ctx.Err() != nil:
+		// The feed stops early and still closes its accounting: such a
+		// step must not pass for one that ran its course.
+		st.Error = fmt.Sprintf("interrupted: offered %d of %d crossings", res.feed.Crossings, crossings)
+	case len(ds.Batches) > 0 && res.feed.Crossings+ds.Fragments/uint64(len(ds.Batches)) <= crossings:
+		// The feed offers whole batches: short by less than one is the
+		// plan; more means it stopped.
+		st.Error = fmt.Sprintf("the feed stopped early: offered %d of %d crossings", res.feed.Crossings, crossings)
 	}
 	if pub := res.feed.Last.Sub(res.feed.First).Seconds(); pub > 0 {
 		st.AchievedOfferHz = float64(res.feed.Crossings) / pub
@@ -347,20 +361,49 @@ func (h *harness) step(ctx context.Context, rateHz float64, index int, n uint64)
 }
 
 // judge says whether a step kept up: nothing lost and p99 within bound;
-// a fixed-rate step must also have been offered at (nearly) its rate.
+// a fixed-rate step must also have been offered at (nearly) its rate and
+// its feed may not have fallen behind its schedule by more than the bound
+// at any moment (latency is measured from the actual publish, so a stall
+// of the feed itself would not show in it).
 func judge(st Step, bound time.Duration) (bool, string) {
 	a := st.Account
+	boundMs := bound.Seconds() * 1e3
 	switch {
 	case st.Error != "":
-		return false, "error"
+		return false, st.Error
 	case !a.Lossless():
-		return false, fmt.Sprintf("lost %d events, %d batches dropped", a.EventsLost, a.FragmentBatchesDropped+a.EventBatchesDropped)
-	case st.Latency.P99 > bound.Seconds()*1e3:
-		return false, fmt.Sprintf("p99 %.1f ms > %.0f ms", st.Latency.P99, bound.Seconds()*1e3)
+		return false, lossReason(a)
+	case st.Latency.P99 > boundMs:
+		return false, fmt.Sprintf("p99 %.1f ms > %.0f ms", st.Latency.P99, boundMs)
 	case st.OfferedHz > 0 && st.AchievedOfferHz < 0.97*st.OfferedHz:
 		return false, fmt.Sprintf("offered only %.0f/s", st.AchievedOfferHz)
+	case st.OfferedHz > 0 && st.FeedBehindMs > boundMs:
+		return false, fmt.Sprintf("feed %.1f ms behind schedule > %.0f ms", st.FeedBehindMs, boundMs)
 	}
 	return true, ""
+}
+
+// lossReason names every term by which a's accounting did not close.
+func lossReason(a Accounting) string {
+	var terms []string
+	add := func(n uint64, what string) {
+		if n != 0 {
+			terms = append(terms, fmt.Sprintf("%d %s", n, what))
+		}
+	}
+	add(a.EventsLost, "events lost")
+	add(a.CrossingsOffered-min(a.EventsBuilt, a.CrossingsOffered), "crossings not built")
+	add(a.EventsIncomplete, "events incomplete")
+	add(a.FragmentsOffered-min(a.FragmentsReceived, a.FragmentsOffered), "fragments not received")
+	add(a.FragmentsReceived-min(a.FragmentsInEvents, a.FragmentsReceived), "fragments not in events")
+	add(a.FragmentBatchesDropped, "fragment batches dropped")
+	add(a.EventBatchesDropped, "event batches dropped")
+	add(a.FragmentBatchesUndecodable, "fragment batches undecodable")
+	add(a.EventBatchesUndecodable, "event batches undecodable")
+	if len(terms) == 0 {
+		return "accounting does not close"
+	}
+	return strings.Join(terms, ", ")
 }
 
 // saturation returns the passing fixed-rate step of highest rate.
@@ -397,6 +440,20 @@ func bracket(steps []Step) (lo, hi float64, ok bool) {
 	return lo, hi, lo > 0 && !math.IsInf(hi, 1)
 }
 
+// betterBaseline reports whether run b should stand for its baseline
+// rather than cur: a run that dropped messages measured what was
+// published, not what arrived, so it counts only if every run did;
+// otherwise the faster run.
+func betterBaseline(b, cur *Baseline) bool {
+	switch {
+	case cur == nil:
+		return true
+	case (b.Dropped == 0) != (cur.Dropped == 0):
+		return b.Dropped == 0
+	}
+	return b.CrossingsPerS > cur.CrossingsPerS
+}
+
 // baselines measures each raw-transport baseline cfg.BaselineRuns times,
 // the kinds taking turns, after one unmeasured pass to warm up. Each run
 // replays the dataset verbatim in as many laps as make it last about
@@ -426,7 +483,7 @@ func (h *harness) baselines(ctx context.Context, hops []int) ([]*Baseline, error
 			if err != nil {
 				return nil, err
 			}
-			if best[k] == nil || b.CrossingsPerS > best[k].CrossingsPerS {
+			if betterBaseline(b, best[k]) {
 				best[k] = b
 			}
 			if i == 0 || b.CrossingsPerS < slowest[k] {

@@ -21,8 +21,11 @@ import (
 // than the dataset (so restamped laps go through the builder), a step as
 // fast as possible and both baselines, then the report as JSON and PNG.
 // It checks the accounting, not the speed.
-func TestHarnessEndToEnd(t *testing.T) {
-	ds, err := Generate(GenerateConfig{Crossings: 1500, Seed: 1})
+// testRig generates a toy dataset of cfg and starts an embedded server
+// for it, closed when the test ends.
+func testRig(t *testing.T, cfg GenerateConfig) (*Dataset, *Network) {
+	t.Helper()
+	ds, err := Generate(cfg)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -31,6 +34,11 @@ func TestHarnessEndToEnd(t *testing.T) {
 		t.Fatal(err)
 	}
 	t.Cleanup(nw.Close)
+	return ds, nw
+}
+
+func TestHarnessEndToEnd(t *testing.T) {
+	ds, nw := testRig(t, GenerateConfig{Crossings: 1500, Seed: 1})
 	// The progress lines and the instrumentation hook write into one log,
 	// so that the hook's place among the phases can be checked.
 	log := &lockedLog{}

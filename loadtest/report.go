@@ -96,6 +96,12 @@ type Step struct {
 	EventsPerS    float64 `json:"events_per_s"`
 	FragmentsPerS float64 `json:"fragments_per_s"`
 	MBPerS        float64 `json:"mb_per_s"`
+	// CrossingsPlanned is how many crossings the step was to offer (the
+	// feed offers whole batches, so up to one batch's worth fewer).
+	CrossingsPlanned uint64 `json:"crossings_planned"`
+	// FeedBehindMs is the most the feed fell behind its schedule at a fixed
+	// rate, beyond its tick; a step fails when it exceeds the p99 bound.
+	FeedBehindMs float64 `json:"feed_behind_ms"`
 	// Laps is how many passes over the dataset the step took.
 	Laps    uint64     `json:"laps"`
 	Latency LatencyMs  `json:"latency_ms"`

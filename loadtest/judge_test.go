@@ -1,0 +1,81 @@
+package loadtest
+
+import (
+	"context"
+	"errors"
+	"strings"
+	"testing"
+	"time"
+)
+
+// A step interrupted part way still closes its accounting (the feed sends
+// its end markers); it must fail, never stand as the saturation point,
+// and Run must say the test was interrupted.
+func TestInterruptedStepFails(t *testing.T) {
+	ds, nw := testRig(t, GenerateConfig{Crossings: 3000, Seed: 2})
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	// Cancel 300 ms into the measured step: the hook runs after the
+	// warm-up, just before the steps.
+	instrument := func() (func(), error) {
+		time.AfterFunc(300*time.Millisecond, cancel)
+		return func() {}, nil
+	}
+	rep, err := Run(ctx, Config{Dataset: ds, Origin: "test", Network: nw, Rates: []float64{2000}, Duration: 3 * time.Second, Instrument: instrument})
+	if !errors.Is(err, context.Canceled) {
+		t.Fatalf("Run after the interruption: %v, want it to say so", err)
+	}
+	if len(rep.Steps) != 1 || rep.Steps[0].Pass || !strings.Contains(rep.Steps[0].Reason, "interrupted") || rep.Saturation != nil {
+		t.Fatalf("steps %+v, saturation %v: want one failed, interrupted step and no saturation", rep.Steps, rep.Saturation)
+	}
+	if st := rep.Steps[0]; st.CrossingsPlanned != 6000 || st.Account.CrossingsOffered >= 6000 {
+		t.Fatalf("planned %d, offered %d", st.CrossingsPlanned, st.Account.CrossingsOffered)
+	}
+}
+
+// judge fails a step for each way it did not keep up, and says which.
+func TestJudgeReasons(t *testing.T) {
+	good := Step{OfferedHz: 1000, AchievedOfferHz: 1000, Latency: LatencyMs{P99: 5},
+		Account: Accounting{CrossingsOffered: 100, EventsBuilt: 100, EventsDecided: 100, FragmentsOffered: 1600, FragmentsReceived: 1600, FragmentsInEvents: 1600}}
+	if ok, why := judge(good, 20*time.Millisecond); !ok {
+		t.Fatalf("a good step failed: %s", why)
+	}
+	for _, tc := range []struct {
+		name   string
+		change func(*Step)
+		reason string
+	}{
+		{"error", func(s *Step) { s.Error = "interrupted: offered 10 of 100 crossings" }, "interrupted"},
+		{"undecodable", func(s *Step) { s.Account.FragmentBatchesUndecodable = 1 }, "1 fragment batches undecodable"},
+		{"incomplete", func(s *Step) { s.Account.EventsIncomplete = 1; s.Account.FragmentsInEvents = 1590 }, "1 events incomplete, 10 fragments not in events"},
+		{"lost", func(s *Step) { s.Account.EventsDecided, s.Account.EventsLost = 98, 2 }, "2 events lost"},
+		{"latency", func(s *Step) { s.Latency.P99 = 25 }, "p99 25.0 ms > 20 ms"},
+		{"rate", func(s *Step) { s.AchievedOfferHz = 900 }, "offered only 900/s"},
+		{"feed stall", func(s *Step) { s.FeedBehindMs = 60 }, "feed 60.0 ms behind schedule"},
+	} {
+		st := good
+		tc.change(&st)
+		ok, why := judge(st, 20*time.Millisecond)
+		if ok || !strings.Contains(why, tc.reason) {
+			t.Errorf("%s: pass %v, reason %q; want a failure saying %q", tc.name, ok, why, tc.reason)
+		}
+	}
+}
+
+// The run standing for a baseline is the fastest that dropped nothing.
+func TestBetterBaselinePrefersRunsWithoutDrops(t *testing.T) {
+	fastDropped := &Baseline{CrossingsPerS: 900, Dropped: 3}
+	slow, fast := &Baseline{CrossingsPerS: 500}, &Baseline{CrossingsPerS: 700}
+	var best *Baseline
+	for _, b := range []*Baseline{fastDropped, slow, fast} {
+		if betterBaseline(b, best) {
+			best = b
+		}
+	}
+	if best != fast {
+		t.Fatalf("chose %+v, want the fastest run without drops", best)
+	}
+	if !betterBaseline(fastDropped, nil) || betterBaseline(fastDropped, slow) {
+		t.Fatal("a run with drops stands only when no run without them exists")
+	}
+}
