@@ -188,6 +188,26 @@ outer:
 	return st, nil
 }
 
+// Offered returns how many crossings Feed.Run offers of ds when asked for
+// crossings (zero: one pass): whole batches only, as Run leaves out a
+// batch whose last crossing lies beyond the limit, in every share.
+func (ds *Dataset) Offered(crossings uint64) uint64 {
+	if crossings == 0 {
+		crossings = ds.Crossings
+	}
+	if ds.Crossings == 0 || len(ds.Sources) == 0 {
+		return 0
+	}
+	laps, rest := crossings/ds.Crossings, crossings%ds.Crossings
+	frags := laps * ds.Fragments
+	for i := range ds.Batches {
+		if ds.Batches[i].Due <= rest {
+			frags += uint64(ds.Batches[i].Fragments)
+		}
+	}
+	return frags / uint64(len(ds.Sources))
+}
+
 // publish stamps data's spare field with the time at and publishes it.
 // data is stamped in place: NATS copies it before Publish returns, and only
 // this feed publishes from it.

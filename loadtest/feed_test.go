@@ -89,3 +89,22 @@ func TestFeedNeverEarly(t *testing.T) {
 		pub.Close()
 	}
 }
+
+// Dataset.Offered predicts what a feed offers for any crossing limit:
+// whole laps, then the batches of every share that fit in what is left.
+func TestOfferedIsWhatTheFeedOffers(t *testing.T) {
+	ds, nw := testRig(t, GenerateConfig{Crossings: 1000, Partitions: 2, Seed: 4})
+	pub, err := nw.Connect("feed-test-pub")
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, n := range []uint64{0, 1, 31, 32, 33, 999, 1000, 1001, 1500, 2000, 2047} {
+		st, err := NewFeed(ds, pub, transport.Subjects{Prefix: "offered"}).Run(context.Background(), n, 0, nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got := ds.Offered(n); got != st.Crossings {
+			t.Errorf("limit %d: Offered says %d, the feed offered %d", n, got, st.Crossings)
+		}
+	}
+}

@@ -333,10 +333,8 @@ func (h *harness) step(ctx context.Context, rateHz float64, index int, n uint64)
 		// The feed stops early and still closes its accounting: such a
 		// step must not pass for one that ran its course.
 		st.Error = fmt.Sprintf("interrupted: offered %d of %d crossings", res.feed.Crossings, crossings)
-	case len(ds.Batches) > 0 && res.feed.Crossings+ds.Fragments/uint64(len(ds.Batches)) <= crossings:
-		// The feed offers whole batches: short by less than one is the
-		// plan; more means it stopped.
-		st.Error = fmt.Sprintf("the feed stopped early: offered %d of %d crossings", res.feed.Crossings, crossings)
+	case res.feed.Crossings != ds.Offered(crossings):
+		st.Error = fmt.Sprintf("the feed stopped early: offered %d of %d crossings", res.feed.Crossings, ds.Offered(crossings))
 	}
 	if pub := res.feed.Last.Sub(res.feed.First).Seconds(); pub > 0 {
 		st.AchievedOfferHz = float64(res.feed.Crossings) / pub
