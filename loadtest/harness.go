@@ -455,20 +455,27 @@ func betterBaseline(b, cur *Baseline) bool {
 // baselines measures each raw-transport baseline cfg.BaselineRuns times,
 // the kinds taking turns, after one unmeasured pass to warm up. Each run
 // replays the dataset verbatim in as many laps as make it last about
-// cfg.BaselineLength.
+// cfg.BaselineLength at the rate last measured for its kind.
 func (h *harness) baselines(ctx context.Context, hops []int) ([]*Baseline, error) {
 	ds := h.cfg.Dataset
 	warm, err := measureBaseline(ctx, h.cfg.Network, ds, h.subjects(), ds.Crossings, hops[0], h.cfg.Workers, 64)
 	if err != nil {
 		return nil, err
 	}
-	crossings := ds.Crossings
-	if warm.CrossingsPerS > 0 {
-		laps := math.Ceil(h.cfg.BaselineLength.Seconds() * warm.CrossingsPerS / float64(ds.Crossings))
-		crossings = uint64(max(laps, 1)) * ds.Crossings
+	// Each run is sized from the last rate measured of its kind (the
+	// cold warm-up's at first), so that it lasts about BaselineLength: a
+	// size fixed from the warm-up alone gave runs of 0.3 to 1.5 s.
+	length := func(rate float64) uint64 {
+		crossings := ds.Crossings
+		if rate > 0 {
+			laps := math.Ceil(h.cfg.BaselineLength.Seconds() * rate / float64(ds.Crossings))
+			crossings = uint64(max(laps, 1)) * ds.Crossings
+		}
+		return max(crossings, h.cfg.Crossings)
 	}
-	if h.cfg.Crossings > crossings {
-		crossings = h.cfg.Crossings
+	last := make([]float64, len(hops))
+	for k := range last {
+		last[k] = warm.CrossingsPerS
 	}
 	best := make([]*Baseline, len(hops))
 	slowest := make([]float64, len(hops))
@@ -477,10 +484,11 @@ func (h *harness) baselines(ctx context.Context, hops []int) ([]*Baseline, error
 			if h.cfg.Progress != nil {
 				fmt.Fprintf(h.cfg.Progress, "\rraw transport, %d hop(s): run %d of %d                              ", hop, i+1, h.cfg.BaselineRuns)
 			}
-			b, err := measureBaseline(ctx, h.cfg.Network, ds, h.subjects(), crossings, hop, h.cfg.Workers, 64)
+			b, err := measureBaseline(ctx, h.cfg.Network, ds, h.subjects(), length(last[k]), hop, h.cfg.Workers, 64)
 			if err != nil {
 				return nil, err
 			}
+			last[k] = b.CrossingsPerS
 			if betterBaseline(b, best[k]) {
 				best[k] = b
 			}
