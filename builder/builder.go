@@ -371,13 +371,7 @@ func (b *Builder) Flush() {
 		panic("builder: Flush called from the emit callback")
 	}
 	for len(b.heap) > 0 {
-		ci := b.heapPop()
-		c := &b.pool[ci]
-		b.closeThrough(c.t)
-		if c.open {
-			b.emit(ci, flushedFlag)
-		}
-		b.forget(ci)
+		b.dropOldest(flushedFlag)
 	}
 }
 

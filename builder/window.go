@@ -196,14 +196,21 @@ func (b *Builder) Evict() bool {
 	if len(b.heap) == 0 {
 		return false
 	}
+	b.dropOldest(evictedFlag)
+	return true
+}
+
+// dropOldest ends the oldest tracked crossing: everything up to it counts
+// as decided, it is emitted with flag if still open, and forgotten. The
+// heap must not be empty.
+func (b *Builder) dropOldest(flag uint32) {
 	ci := b.heapPop()
 	c := &b.pool[ci]
 	b.closeThrough(c.t)
 	if c.open {
-		b.emit(ci, evictedFlag)
+		b.emit(ci, flag)
 	}
 	b.forget(ci)
-	return true
 }
 
 // trim brings the window back to its size after a new crossing went in
@@ -212,13 +219,7 @@ func (b *Builder) Evict() bool {
 // everything up to it counts as decided.
 func (b *Builder) trim() {
 	for len(b.heap) > b.window {
-		ci := b.heapPop()
-		c := &b.pool[ci]
-		b.closeThrough(c.t)
-		if c.open {
-			b.emit(ci, evictedFlag)
-		}
-		b.forget(ci)
+		b.dropOldest(evictedFlag)
 	}
 }
 
