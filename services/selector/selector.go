@@ -399,6 +399,11 @@ func (s *Selector) finishLocked() {
 // were lost on the way (Config.EndWait). With more than one worker, worker
 // 0 counts them, so that the workers' counts add up.
 func (s *Selector) giveUpLocked(now time.Time) {
+	select {
+	case <-s.finished:
+		return // given up already, or done; count nothing twice
+	default:
+	}
 	ended, want, have := s.progressLocked()
 	if !ended || have >= want {
 		s.waitSince = time.Time{}
