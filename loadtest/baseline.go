@@ -101,6 +101,17 @@ func measureBaseline(ctx context.Context, nw *Network, ds *Dataset, s transport.
 		}
 	}
 
+	interest := []string{s.Fragments(0, ds.Sources[0])}
+	for p := 1; p < ds.Partitions; p++ {
+		interest = append(interest, s.Fragments(p, ds.Sources[0]))
+	}
+	if hops == 2 {
+		interest = append(interest, s.Built())
+	}
+	if err := nw.AwaitInterest(interest, 10*time.Second); err != nil {
+		return nil, err
+	}
+
 	// Flow control: the feed waits while more than window batches are in
 	// flight, so the baseline measures what the transport sustains rather
 	// than how fast it can fill its queues, and no queue overflows.

@@ -154,6 +154,29 @@ func (nw *Network) Connect(name string) (*nats.Conn, error) {
 	return nc, nil
 }
 
+// AwaitInterest waits until every server the Network started knows of a
+// subscription matching each of subjects, or fails after timeout. A
+// subscription is confirmed by its own server at once (a Flush), but the
+// other members of a cluster learn of it over their routes a moment
+// later, and a publish to a member that has not yet heard of it reaches
+// nobody: a short run could offer everything before then. For an
+// external deployment it cannot look and returns at once.
+func (nw *Network) AwaitInterest(subjects []string, timeout time.Duration) error {
+	deadline := time.Now().Add(timeout)
+	for _, s := range nw.srvs {
+		acc := s.GlobalAccount()
+		for _, subj := range subjects {
+			for !acc.SubscriptionInterest(subj) {
+				if time.Now().After(deadline) {
+					return fmt.Errorf("loadtest: server %s learnt of no subscriber to %s within %v", s.Name(), subj, timeout)
+				}
+				time.Sleep(time.Millisecond)
+			}
+		}
+	}
+	return nil
+}
+
 // RoutedMessages returns how many messages the servers the Network
 // started have received from each other over their routes: zero but for a
 // cluster.

@@ -28,6 +28,7 @@ import (
 // group, each on a connection of its own as separate processes would be.
 type pipeline struct {
 	ds       *Dataset
+	net      *Network
 	subjects transport.Subjects
 	conns    []*nats.Conn
 	feed     *Feed
@@ -53,7 +54,7 @@ type pipelineConfig struct {
 }
 
 func newPipeline(cfg pipelineConfig) (*pipeline, error) {
-	p := &pipeline{ds: cfg.ds, subjects: cfg.subjects}
+	p := &pipeline{ds: cfg.ds, net: cfg.net, subjects: cfg.subjects}
 	conn := func(name string) (*nats.Conn, error) {
 		nc, err := cfg.net.Connect(name)
 		if err != nil {
@@ -121,6 +122,21 @@ func newPipeline(cfg pipelineConfig) (*pipeline, error) {
 	return p, nil
 }
 
+// startSubjects are the subjects whose subscribers must be known to every
+// server before the feed starts: each builder share's fragments, the
+// built events and, with the hook, the decisions. The workers' end and
+// progress subjects carry messages only at the end of a run.
+func (p *pipeline) startSubjects() []string {
+	out := []string{p.subjects.Built()}
+	for k := 0; k < p.ds.Partitions; k++ {
+		out = append(out, p.subjects.Fragments(k, p.ds.Sources[0]))
+	}
+	if p.hook {
+		out = append(out, p.subjects.Decisions())
+	}
+	return out
+}
+
 func (p *pipeline) close() {
 	for _, nc := range p.conns {
 		nc.Close()
@@ -185,6 +201,11 @@ func (p *pipeline) run(ctx context.Context, crossings uint64, rateHz float64, dr
 			wg.Wait()
 			return res
 		}
+	}
+	if res.err = p.net.AwaitInterest(p.startSubjects(), 10*time.Second); res.err != nil {
+		stop()
+		wg.Wait()
+		return res
 	}
 
 	mem := startSampler(memEvery, keepMemory)
