@@ -1,6 +1,7 @@
 package deploy_test
 
 import (
+	"context"
 	"errors"
 	"fmt"
 	"io"
@@ -16,7 +17,14 @@ import (
 
 	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
+	promclient "github.com/prometheus/client_golang/prometheus"
 	"go.yaml.in/yaml/v3"
+
+	"github.com/bunchsieve/bunchsieve/detector"
+	"github.com/bunchsieve/bunchsieve/services/capture"
+	"github.com/bunchsieve/bunchsieve/services/emulator"
+	"github.com/bunchsieve/bunchsieve/services/transport"
 )
 
 const (
@@ -205,30 +213,45 @@ func TestNATSClusterForms(t *testing.T) {
 		}
 		return false
 	})
+	// The stream is the durable recording of the fragment batches
+	// (services/capture), replicated on all three members: opened from
+	// one server, filled by a readout publishing to another, saved
+	// complete through the third.
 	nc, err := nats.Connect(servers[2].ClientURL())
 	if err != nil {
 		t.Fatal(err)
 	}
 	defer nc.Close()
-	js, err := nc.JetStream(nats.MaxWait(5 * time.Second))
+	js, err := jetstream.New(nc)
 	if err != nil {
 		t.Fatal(err)
 	}
-	var info *nats.StreamInfo
+	ctx, cancel := context.WithTimeout(context.Background(), time.Minute)
+	defer cancel()
+	var st jetstream.Stream
 	waitFor(t, 30*time.Second, "a stream replicated on 3 members", func() bool {
-		info, err = js.AddStream(&nats.StreamConfig{Name: "RECORDING", Subjects: []string{"bunchsieve.record.>"}, Replicas: 3, Storage: nats.FileStorage})
+		st, _, err = capture.Open(ctx, js, capture.Options{MaxBytes: 64 << 20, Replicas: 3})
 		return err == nil
 	})
-	waitFor(t, 30*time.Second, "an acknowledged write", func() bool {
-		_, err = js.Publish("bunchsieve.record.test", []byte("fragment batch"))
-		return err == nil
-	})
-	info, err = js.StreamInfo("RECORDING")
+	ncR, err := nats.Connect(servers[0].ClientURL())
 	if err != nil {
 		t.Fatal(err)
 	}
-	if info.Cluster == nil || info.Cluster.Name != clusterName || len(info.Cluster.Replicas) != 2 || info.State.Msgs != 1 {
-		t.Errorf("stream info: cluster %+v, %d messages; want cluster %s with a leader and 2 replicas, 1 message", info.Cluster, info.State.Msgs, clusterName)
+	defer ncR.Close()
+	sources := publishRun(t, ncR, 300)
+	var res capture.Result
+	var batches int
+	res, err = capture.Save(ctx, js, capture.SaveOptions{Sources: sources, Partitions: 1, Idle: 10 * time.Second,
+		Create: func(uint32) (capture.Writer, error) { return countingWriter{&batches}, nil }})
+	if err != nil || !res.Complete() || res.Crossings != 300 {
+		t.Fatalf("save from the cluster: %v, complete %v (%v), %d crossings of 300", err, res.Complete(), res.Problems(), res.Crossings)
+	}
+	info, err := st.Info(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if info.Cluster == nil || info.Cluster.Name != clusterName || len(info.Cluster.Replicas) != 2 || info.State.Msgs != uint64(batches) {
+		t.Errorf("stream info: cluster %+v, %d messages; want cluster %s with a leader and 2 replicas, %d messages", info.Cluster, info.State.Msgs, clusterName, batches)
 	}
 	names := map[string]bool{}
 	if info.Cluster != nil {
@@ -276,3 +299,32 @@ func waitFor(t *testing.T, timeout time.Duration, what string, cond func() bool)
 		time.Sleep(50 * time.Millisecond)
 	}
 }
+
+// publishRun publishes a short readout run of crossings crossings on nc,
+// as `bunchsieve readout` does, and returns its sources.
+func publishRun(t *testing.T, nc *nats.Conn, crossings uint64) []uint32 {
+	t.Helper()
+	d := detector.DefaultDescription()
+	part, err := detector.NewPartition(d.Geometry, 4)
+	if err != nil {
+		t.Fatal(err)
+	}
+	gen, err := detector.NewSimpleGenerator(d, part, 1, detector.SimpleConfig{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	emu, err := emulator.New(emulator.Config{Run: 2, Crossings: crossings}, gen, part.SourceIDs(), emulator.NewNATSSink(nc, transport.Subjects{}), promclient.NewRegistry())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := emu.Run(context.Background()); err != nil {
+		t.Fatal(err)
+	}
+	return part.SourceIDs()
+}
+
+// countingWriter counts the batches written.
+type countingWriter struct{ n *int }
+
+func (w countingWriter) WriteBatch(uint32, int, int64, []byte, int) error { *w.n++; return nil }
+func (countingWriter) AddCrossings(uint64)                                {}

@@ -35,6 +35,7 @@ var commands = []command{
 	{"build", "run the event builder against a NATS server", runBuild},
 	{"select", "run the selection against a NATS server", runSelect},
 	{"record", "write generated crossings to a stream file for later replay", runRecord},
+	{"capture", "record the readout's fragments durably in JetStream on the NATS deployment and save a run to a stream file", runCapture},
 	{"replay", "replay a stream or generated crossings through a menu and write the rates and efficiency report", runReplay},
 	{"loadtest", "measure throughput, latency and loss of builder and selection through NATS against the raw-transport ceiling", runLoadtest},
 	{"menu", "work with menus: `menu check FILE` validates one and lists its rules", runMenu},

@@ -120,15 +120,15 @@ func startTrace(path string) (stop func() error, err error) {
 	return startCapture(openTrace(path))
 }
 
-func openCPUProfile(path string) (*capture, error) {
+func openCPUProfile(path string) (*profileCapture, error) {
 	return openCapture(path, "cpu profile", pprof.StartCPUProfile, pprof.StopCPUProfile)
 }
 
-func openTrace(path string) (*capture, error) {
+func openTrace(path string) (*profileCapture, error) {
 	return openCapture(path, "trace", trace.Start, trace.Stop)
 }
 
-func startCapture(r *capture, err error) (stop func() error, _ error) {
+func startCapture(r *profileCapture, err error) (stop func() error, _ error) {
 	if err != nil {
 		return nil, err
 	}
@@ -138,11 +138,11 @@ func startCapture(r *capture, err error) (stop func() error, _ error) {
 	return r.stop, nil
 }
 
-// capture is a CPU profile or an execution trace into a file, created
+// profileCapture is a CPU profile or an execution trace into a file, created
 // when the command starts (so an unwritable path fails before anything
-// runs) and begun when the part worth recording starts. A capture is
+// runs) and begun when the part worth recording starts. A profileCapture is
 // used by one goroutine.
-type capture struct {
+type profileCapture struct {
 	what    string
 	f       *os.File
 	begin   func(io.Writer) error
@@ -153,9 +153,9 @@ type capture struct {
 }
 
 // openCapture creates the file at path for begin and end to record
-// into; an empty path gives a capture that records nothing.
-func openCapture(path, what string, begin func(io.Writer) error, end func()) (*capture, error) {
-	r := &capture{what: what, begin: begin, end: end}
+// into; an empty path gives a profileCapture that records nothing.
+func openCapture(path, what string, begin func(io.Writer) error, end func()) (*profileCapture, error) {
+	r := &profileCapture{what: what, begin: begin, end: end}
 	if path == "" {
 		return r, nil
 	}
@@ -169,7 +169,7 @@ func openCapture(path, what string, begin func(io.Writer) error, end func()) (*c
 
 // start begins recording; a second call does nothing. On an error the
 // file is closed.
-func (r *capture) start() error {
+func (r *profileCapture) start() error {
 	if r.f == nil || r.started {
 		return nil
 	}
@@ -184,7 +184,7 @@ func (r *capture) start() error {
 
 // stop ends the recording, if it began, and closes the file. It may be
 // called more than once and reports the first call's error.
-func (r *capture) stop() error {
+func (r *profileCapture) stop() error {
 	r.once.Do(func() {
 		if r.f == nil {
 			return

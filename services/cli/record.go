@@ -13,6 +13,7 @@ import (
 	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
 	"github.com/bunchsieve/bunchsieve/services/emulator"
 	"github.com/bunchsieve/bunchsieve/services/recording"
+	"github.com/bunchsieve/bunchsieve/services/runconfig"
 )
 
 func runRecord(ctx context.Context, e *env, args []string) error {
@@ -45,24 +46,14 @@ func runRecord(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	genYAML, err := yaml.Marshal(cfg.Generator)
+	h, err := streamHeader(cfg, sources, *partitions, "bunchsieve "+Version)
 	if err != nil {
-		return fmt.Errorf("encode generator settings: %w", err)
-	}
-	detYAML := detector.BuiltinDescriptionYAML()
-	if cfg.Detector != "" {
-		if detYAML, err = readFile(cfg.Detector); err != nil {
-			return err
-		}
+		return err
 	}
 	// The truth of every crossing goes into the file too, so that offline
 	// efficiencies (bunchsieve replay --efficiency RULE:truth-...) work on
 	// recorded streams.
-	w, err := recording.CreateWithTruth(*out, &pb.StreamHeader{
-		Run: cfg.Run, Seed: cfg.Seed, SourceIds: sources, Partitions: uint32(*partitions),
-		BatchCrossings: uint32(cfg.BatchCrossings), Generator: generatorKind(cfg.Generator.Kind), GeneratorConfig: string(genYAML),
-		Detector: string(detYAML), CreatedUnixNs: time.Now().UnixNano(), Producer: "bunchsieve " + Version,
-	})
+	w, err := recording.CreateWithTruth(*out, h)
 	if err != nil {
 		return err
 	}
@@ -99,12 +90,40 @@ func runRecord(ctx context.Context, e *env, args []string) error {
 // it), the metrics address (nothing is served), the subject prefix (no
 // NATS) and the summary file (none is written).
 func recordFlags(fs *flag.FlagSet, rf *runFlags) {
-	all := flag.NewFlagSet("record", flag.ContinueOnError)
-	rf.register(all, "", true)
-	for _, name := range []string{"config", "sources", "seed", "crossings", "duration"} {
+	someRunFlags(fs, rf, true, "config", "sources", "seed", "crossings", "duration")
+}
+
+// someRunFlags registers on fs the run flags names only, described as
+// everywhere else (generator: with the flags of commands that generate
+// crossings).
+func someRunFlags(fs *flag.FlagSet, rf *runFlags, generator bool, names ...string) {
+	all := flag.NewFlagSet(fs.Name(), flag.ContinueOnError)
+	rf.register(all, "", generator)
+	for _, name := range names {
 		f := all.Lookup(name)
 		fs.Var(f.Value, f.Name, f.Usage)
 	}
+}
+
+// streamHeader is the header of a stream file of the run cfg describes:
+// its detector description, generator settings, sources and builder
+// shares, written by producer.
+func streamHeader(cfg runconfig.Config, sources []uint32, partitions int, producer string) (*pb.StreamHeader, error) {
+	genYAML, err := yaml.Marshal(cfg.Generator)
+	if err != nil {
+		return nil, fmt.Errorf("encode generator settings: %w", err)
+	}
+	detYAML := detector.BuiltinDescriptionYAML()
+	if cfg.Detector != "" {
+		if detYAML, err = readFile(cfg.Detector); err != nil {
+			return nil, err
+		}
+	}
+	return &pb.StreamHeader{
+		Run: cfg.Run, Seed: cfg.Seed, SourceIds: sources, Partitions: uint32(partitions),
+		BatchCrossings: uint32(cfg.BatchCrossings), Generator: generatorKind(cfg.Generator.Kind), GeneratorConfig: string(genYAML),
+		Detector: string(detYAML), CreatedUnixNs: time.Now().UnixNano(), Producer: producer,
+	}, nil
 }
 
 func generatorKind(k string) string {

@@ -71,6 +71,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	certFile := fs.String("tls-cert", "", "serve run control over TLS with this certificate `FILE` (PEM)")
 	keyFile := fs.String("tls-key", "", "private key `FILE` (PEM) for --tls-cert")
 	natsListen := fs.String("nats-listen", "127.0.0.1:-1", "`host:port` of the embedded NATS server")
+	store := fs.String("jetstream-dir", "", "turn JetStream on in the embedded server with its store in `DIR`, so that `bunchsieve capture` can record the runs durably (docs/capture.md)")
 	if err := parse(fs, args, 0); err != nil {
 		return err
 	}
@@ -104,7 +105,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	host, err := stack.NewHost(stack.HostOptions{MetricsAddr: rf.metrics, NATSHost: natsHost, NATSPort: natsPort})
+	host, err := stack.NewHost(stack.HostOptions{MetricsAddr: rf.metrics, NATSHost: natsHost, NATSPort: natsPort, StoreDir: *store})
 	if err != nil {
 		return err
 	}

@@ -159,6 +159,20 @@ func runReadout(ctx context.Context, e *env, args []string) error {
 	return runErr
 }
 
+// readoutSources loads cfg's detector description and returns it with
+// the ids of the sources the readout sends from.
+func readoutSources(cfg runconfig.Config) (*detector.Description, []uint32, error) {
+	desc, err := cfg.LoadDetector()
+	if err != nil {
+		return nil, nil, err
+	}
+	_, sources, err := cfg.Readout(desc)
+	if err != nil {
+		return nil, nil, err
+	}
+	return desc, sources, nil
+}
+
 // newGenerator builds the run's crossing generator, its partition and the
 // ids of the sources that send fragments.
 func newGenerator(cfg runconfig.Config) (detector.Generator, *detector.Partition, []uint32, error) {
@@ -226,11 +240,7 @@ func runBuild(ctx context.Context, e *env, args []string) error {
 	if *instances < 1 || *instance < 0 || *instance >= *instances {
 		return usagef("--instance %d of --builders %d: want 0 <= instance < builders", *instance, *instances)
 	}
-	desc, err := cfg.LoadDetector()
-	if err != nil {
-		return err
-	}
-	_, sources, err := cfg.Readout(desc)
+	desc, sources, err := readoutSources(cfg)
 	if err != nil {
 		return err
 	}

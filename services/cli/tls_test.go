@@ -98,38 +98,8 @@ func TestServeAndCtlOverTLS(t *testing.T) {
 	otherCA, _, _ := writeCertificates(t, dir, "other")
 	tokenFile := filepath.Join(dir, "token")
 
-	ctx, cancel := context.WithCancel(context.Background())
-	var out, errb lockedBuffer
-	done := make(chan int, 1)
-	go func() {
-		done <- run(ctx, []string{"serve", "--control", "127.0.0.1:0", "--metrics-addr", "", "--token-file", tokenFile,
-			"--tls-cert", cert, "--tls-key", key, "--crossings", "2000", "--rate", "0"}, &out, &errb)
-	}()
-	defer func() {
-		cancel()
-		select {
-		case <-done:
-		case <-time.After(40 * time.Second):
-			t.Error("serve did not stop")
-		}
-	}()
-	addrRE := regexp.MustCompile(`run control on (127\.0\.0\.1:\d+)`)
-	var addr string
-	for deadline := time.Now().Add(20 * time.Second); addr == ""; {
-		if m := addrRE.FindStringSubmatch(out.String()); m != nil {
-			addr = m[1]
-			break
-		}
-		select {
-		case code := <-done:
-			t.Fatalf("serve exited %d: %s", code, errb.String())
-		default:
-		}
-		if time.Now().After(deadline) {
-			t.Fatalf("serve did not report its address: %q %q", out.String(), errb.String())
-		}
-		time.Sleep(10 * time.Millisecond)
-	}
+	addr, _ := startServe(t, "--control", "127.0.0.1:0", "--metrics-addr", "", "--token-file", tokenFile,
+		"--tls-cert", cert, "--tls-key", key, "--crossings", "2000", "--rate", "0")
 
 	ctl := func(args ...string) (int, string, string) {
 		return runCLI(t, 15*time.Second, append([]string{"ctl", "--addr", addr, "--token-file", tokenFile, "--timeout", "5s"}, args...)...)
@@ -148,5 +118,39 @@ func TestServeAndCtlOverTLS(t *testing.T) {
 	}
 	if code, stdout, _ := ctl("status"); code == 0 {
 		t.Fatalf("a plaintext client was answered by the TLS server: %q", stdout)
+	}
+}
+
+// startServe runs `bunchsieve serve args...` until the test ends and
+// returns its run-control address and its standard output so far.
+func startServe(t *testing.T, args ...string) (addr string, out *lockedBuffer) {
+	t.Helper()
+	ctx, cancel := context.WithCancel(context.Background())
+	out = &lockedBuffer{}
+	var errb lockedBuffer
+	done := make(chan int, 1)
+	go func() { done <- run(ctx, append([]string{"serve"}, args...), out, &errb) }()
+	t.Cleanup(func() {
+		cancel()
+		select {
+		case <-done:
+		case <-time.After(40 * time.Second):
+			t.Error("serve did not stop")
+		}
+	})
+	addrRE := regexp.MustCompile(`run control on (127\.0\.0\.1:\d+)`)
+	for deadline := time.Now().Add(20 * time.Second); ; {
+		if m := addrRE.FindStringSubmatch(out.String()); m != nil {
+			return m[1], out
+		}
+		select {
+		case code := <-done:
+			t.Fatalf("serve exited %d: %s", code, errb.String())
+		default:
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("serve did not report its address: %q %q", out.String(), errb.String())
+		}
+		time.Sleep(10 * time.Millisecond)
 	}
 }

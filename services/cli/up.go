@@ -2,8 +2,10 @@ package cli
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"net"
+	"os"
 	"strconv"
 
 	"github.com/bunchsieve/bunchsieve/services/stack"
@@ -18,6 +20,7 @@ func runUp(ctx context.Context, e *env, args []string) error {
 	natsListen := fs.String("nats-listen", "127.0.0.1:-1", "`host:port` of the embedded NATS server (port -1 picks a free one)")
 	statusEvery := fs.Duration("status-every", 0, "interval of the status line; 0 takes the configuration's (1s)")
 	quiet := fs.Bool("quiet", false, "print no status lines, only the summary")
+	keep := fs.String("capture", "", "also store the readout's fragment batches in a JetStream stream of the embedded server (as `capture open` does on a deployment) and save the run from it into the stream `FILE` at the end")
 	var faults faultFlags
 	fs.Var(&faults, "fault", faultHelp)
 	if err := parse(fs, args, 0); err != nil {
@@ -53,11 +56,26 @@ func runUp(ctx context.Context, e *env, args []string) error {
 	if !*quiet {
 		opts.Status = e.stdout
 	}
+	if *keep != "" {
+		store, err := os.MkdirTemp("", "bunchsieve-capture-")
+		if err != nil {
+			return fmt.Errorf("capture store: %w", err)
+		}
+		defer os.RemoveAll(store)
+		opts.StoreDir = store
+	}
 	st, err := stack.New(opts)
 	if err != nil {
 		return err
 	}
 	defer st.Close()
+	var kept *upCapture
+	if *keep != "" {
+		if kept, err = openUpCapture(st.Host().NATS(), cfg); err != nil {
+			return err
+		}
+		defer kept.close()
+	}
 	st.Host().Handle("/", web.Handler(st.Page()))
 	if !*quiet {
 		limit := "until interrupted (Ctrl-C drains and prints the summary)"
@@ -72,6 +90,9 @@ func runUp(ctx context.Context, e *env, args []string) error {
 	}
 	sum, runErr := st.Run(ctx)
 	sum.Print(e.stdout)
+	if kept != nil {
+		runErr = errors.Join(runErr, kept.save(e, *keep))
+	}
 	if rf.summary != "" {
 		if err := sum.WriteJSON(rf.summary); err != nil {
 			return err

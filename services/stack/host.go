@@ -26,6 +26,9 @@ type HostOptions struct {
 	// only by default); port -1 picks a free port, 0 means -1.
 	NATSHost string
 	NATSPort int
+	// StoreDir, when not empty, turns JetStream on in the embedded server
+	// with its store there (for a durable capture, services/capture).
+	StoreDir string
 }
 
 // Host is what outlives a run: the embedded NATS server, the HTTP server,
@@ -61,7 +64,7 @@ func NewHost(opts HostOptions) (*Host, error) {
 		}
 		h.httpLn, h.addr = ln, ln.Addr().String()
 	}
-	srv, err := transport.Embedded(opts.NATSHost, opts.NATSPort)
+	srv, err := transport.EmbeddedWith(transport.EmbeddedOptions{Host: opts.NATSHost, Port: opts.NATSPort, StoreDir: opts.StoreDir})
 	if err != nil {
 		h.Close()
 		return nil, err

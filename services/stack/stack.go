@@ -30,6 +30,9 @@ type Options struct {
 	// only by default); port -1 picks a free port, 0 means -1.
 	NATSHost string
 	NATSPort int
+	// StoreDir, when not empty, turns JetStream on in the embedded server
+	// with its store there.
+	StoreDir string
 	// Status receives one status line per Run.StatusEvery; nil means none.
 	Status io.Writer
 	// DrainTimeout bounds the wait for in-flight crossings after offering
@@ -54,7 +57,7 @@ func New(opts Options) (*Stack, error) {
 	if err != nil {
 		return nil, err
 	}
-	host, err := NewHost(HostOptions{MetricsAddr: opts.MetricsAddr, NATSHost: opts.NATSHost, NATSPort: opts.NATSPort})
+	host, err := NewHost(HostOptions{MetricsAddr: opts.MetricsAddr, NATSHost: opts.NATSHost, NATSPort: opts.NATSPort, StoreDir: opts.StoreDir})
 	if err != nil {
 		return nil, err
 	}

@@ -60,19 +60,50 @@ func ConnectInProcess(srv *server.Server, name string) (*nats.Conn, error) {
 // loopback interface (port -1 picks a free port). Call Shutdown and
 // WaitForShutdown on the result when done.
 func Embedded(host string, port int) (*server.Server, error) {
+	return EmbeddedWith(EmbeddedOptions{Host: host, Port: port})
+}
+
+// EmbeddedOptions configure an embedded server.
+type EmbeddedOptions struct {
+	// Host and Port are where it listens (see Embedded).
+	Host string
+	Port int
+	// StoreDir, when not empty, enables JetStream with its file store in
+	// that directory (services/capture keeps fragment streams there).
+	StoreDir string
+	// MaxStore caps the file store in bytes; zero means 4 GiB.
+	MaxStore int64
+}
+
+// embeddedMaxMemory caps JetStream's memory store: its default takes most
+// of the machine's RAM, and nothing here uses memory storage.
+const embeddedMaxMemory = 64 << 20
+
+// EmbeddedWith starts an embedded server as o says.
+func EmbeddedWith(o EmbeddedOptions) (*server.Server, error) {
+	host := o.Host
 	if host == "" {
 		host = "127.0.0.1"
 	}
 	opts := &server.Options{
 		ServerName: "bunchsieve-embedded",
 		Host:       host,
-		Port:       port,
+		Port:       o.Port,
 		NoLog:      true,
 		NoSigs:     true,
 		MaxPayload: 8 << 20,
 		// A selection or builder that falls behind for a moment should be
 		// buffered, not cut off.
 		MaxPending: 256 << 20,
+	}
+	if o.StoreDir != "" {
+		opts.JetStream = true
+		opts.StoreDir = o.StoreDir
+		opts.JetStreamMaxMemory = embeddedMaxMemory
+		opts.JetStreamMaxStore = o.MaxStore
+		if opts.JetStreamMaxStore == 0 {
+			opts.JetStreamMaxStore = 4 << 30
+		}
 	}
 	srv, err := server.NewServer(opts)
 	if err != nil {
@@ -81,7 +112,7 @@ func Embedded(host string, port int) (*server.Server, error) {
 	srv.Start()
 	if !srv.ReadyForConnections(5 * time.Second) {
 		srv.Shutdown()
-		return nil, fmt.Errorf("transport: embedded NATS server on %s:%d did not become ready", host, port)
+		return nil, fmt.Errorf("transport: embedded NATS server on %s:%d did not become ready", host, o.Port)
 	}
 	return srv, nil
 }

@@ -1,0 +1,466 @@
+// Package capture records the readout's fragment batches durably in a
+// JetStream stream on the NATS deployment itself, and writes what was
+// stored into a stream file (docs/stream-format.md) for replay.
+//
+// A core NATS subscriber that writes a file loses batches whenever it
+// falls behind or is disconnected; a JetStream stream is filled by the
+// server as the batches pass, whatever the recorder does, and keeps them
+// through a server restart (file storage). Saving reads the stream from
+// its first message at its own pace, so it can run during the run, after
+// it, or again after a failed attempt.
+package capture
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"sort"
+	"strconv"
+	"strings"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
+	"google.golang.org/protobuf/proto"
+
+	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+	"github.com/bunchsieve/bunchsieve/services/transport"
+)
+
+// DefaultMaxBytes caps a stream's stored bytes when the caller sets no
+// limit: about half an hour of the default readout (16 sources at 5,000
+// crossings/s, ~1 kB per crossing, is 5 MB/s), and within the store of
+// the deployment's servers (deploy/nats: max_file_store 20GB).
+const DefaultMaxBytes = 8 << 30
+
+// DefaultName returns the stream name for subjects s: the prefix with its
+// dots (not allowed in stream names) made underscores, then "_fragments".
+func DefaultName(s transport.Subjects) string {
+	p := s.Prefix
+	if p == "" {
+		p = transport.DefaultPrefix
+	}
+	return strings.ReplaceAll(p, ".", "_") + "_fragments"
+}
+
+// subject returns the wildcard subject every fragment batch of s is on.
+func subject(s transport.Subjects) string {
+	f := s.Fragments(0, 0)
+	return f[:len(f)-len("0.0")] + ">"
+}
+
+// Options say which stream to open.
+type Options struct {
+	// Name is the stream's name; empty means DefaultName(Subjects).
+	Name     string
+	Subjects transport.Subjects
+	// MaxBytes caps the stored bytes; zero means DefaultMaxBytes. A full
+	// stream refuses new batches rather than dropping its oldest, so a
+	// recording that overflowed shows as missing batches at its end
+	// instead of silently losing its start.
+	MaxBytes int64
+	// Replicas is the number of servers of a cluster holding the stream
+	// (1 for a single server).
+	Replicas int
+}
+
+func (o Options) name() string {
+	if o.Name != "" {
+		return o.Name
+	}
+	return DefaultName(o.Subjects)
+}
+
+// Open creates the stream that stores every fragment batch published
+// under o.Subjects, or finds it if it exists with the same subjects. It
+// reports whether it created the stream.
+func Open(ctx context.Context, js jetstream.JetStream, o Options) (jetstream.Stream, bool, error) {
+	name := o.name()
+	want := subject(o.Subjects)
+	st, err := js.Stream(ctx, name)
+	if err == nil {
+		info := st.CachedInfo()
+		if len(info.Config.Subjects) != 1 || info.Config.Subjects[0] != want {
+			return nil, false, fmt.Errorf("capture: stream %s exists and stores %v, not %s; remove it or choose another --name", name, info.Config.Subjects, want)
+		}
+		return st, false, nil
+	}
+	if !errors.Is(err, jetstream.ErrStreamNotFound) {
+		return nil, false, describe(name, err)
+	}
+	maxBytes := o.MaxBytes
+	if maxBytes == 0 {
+		maxBytes = DefaultMaxBytes
+	}
+	replicas := max(o.Replicas, 1)
+	st, err = js.CreateStream(ctx, jetstream.StreamConfig{
+		Name:        name,
+		Description: "bunchsieve fragment batches of " + want,
+		Subjects:    []string{want},
+		Retention:   jetstream.LimitsPolicy,
+		MaxBytes:    maxBytes,
+		Discard:     jetstream.DiscardNew,
+		Storage:     jetstream.FileStorage,
+		Replicas:    replicas,
+	})
+	if err != nil {
+		return nil, false, describe(name, err)
+	}
+	return st, true, nil
+}
+
+// Remove deletes the stream name and everything it stored.
+func Remove(ctx context.Context, js jetstream.JetStream, name string) error {
+	if err := js.DeleteStream(ctx, name); err != nil {
+		return describe(name, err)
+	}
+	return nil
+}
+
+// errInsufficientStorage is the JetStream API's error code for a stream
+// whose limits the server's store cannot reserve.
+const errInsufficientStorage jetstream.ErrorCode = 10047
+
+func describe(name string, err error) error {
+	var apiErr *jetstream.APIError
+	if errors.As(err, &apiErr) && apiErr.ErrorCode == errInsufficientStorage {
+		return fmt.Errorf("capture: stream %s: the server cannot reserve the stream's size limit in its store; give a smaller limit (--max-mib) or raise the server's max_file_store: %w", name, err)
+	}
+	if errors.Is(err, jetstream.ErrJetStreamNotEnabled) || errors.Is(err, jetstream.ErrJetStreamNotEnabledForAccount) || errors.Is(err, nats.ErrNoResponders) {
+		return fmt.Errorf("capture: stream %s: the NATS server has JetStream off (start it with JetStream enabled, e.g. a jetstream block with a store_dir): %w", name, err)
+	}
+	if errors.Is(err, jetstream.ErrStreamNotFound) {
+		return fmt.Errorf("capture: no stream %s on this NATS deployment (open it before the run with bunchsieve capture open)", name)
+	}
+	return fmt.Errorf("capture: stream %s: %w", name, err)
+}
+
+// Writer takes the batches Save reads; *recording.Writer is one.
+type Writer interface {
+	WriteBatch(source uint32, partition int, firstTimestampNs int64, data []byte, fragments int) error
+	AddCrossings(n uint64)
+}
+
+// SaveOptions say what Save reads and when it stops.
+type SaveOptions struct {
+	// Name is the stream's name; empty means DefaultName(Subjects).
+	Name     string
+	Subjects transport.Subjects
+	// Run selects the run to save; zero takes the run of the first stored
+	// batch. Batches of other runs are skipped and counted.
+	Run uint32
+	// Sources and Partitions are what the readout sends: every source to
+	// every one of Partitions builder shares. Save is complete when each
+	// pair has sent its end-of-run batch and no batch is missing.
+	Sources    []uint32
+	Partitions int
+	// Idle is how long Save waits for a new batch before it stops without
+	// every end-of-run batch; zero means 5 s.
+	Idle time.Duration
+	// Create is called once, with the run's number, before the run's
+	// first batch is written, and returns where the batches go (the run
+	// is known only then when Run is zero). Without a batch of the run
+	// it is never called.
+	Create func(run uint32) (Writer, error)
+}
+
+// Gap is a run of batch sequence numbers of one source and builder share
+// that the stream does not hold.
+type Gap struct {
+	Partition int
+	Source    uint32
+	// From and To are the first and last missing sequence numbers.
+	From, To uint64
+}
+
+func (g Gap) String() string {
+	if g.From == g.To {
+		return fmt.Sprintf("source %d share %d batch %d", g.Source, g.Partition, g.From)
+	}
+	return fmt.Sprintf("source %d share %d batches %d-%d", g.Source, g.Partition, g.From, g.To)
+}
+
+// Result is what Save read and wrote.
+type Result struct {
+	Stream string
+	Run    uint32
+	// Batches, Fragments and Crossings were written (crossings counted
+	// once however many sources sent fragments of them).
+	Batches, Fragments, Crossings uint64
+	// Ended counts the (source, share) pairs whose end-of-run batch was
+	// read, of Expected.
+	Ended, Expected int
+	// NotEnded lists the pairs that sent no end-of-run batch, as
+	// "source S share P".
+	NotEnded []string
+	// Gaps are missing batches: sequence numbers skipped before a later
+	// batch of the same pair arrived.
+	Gaps []Gap
+	// Duplicates are batches stored twice (same pair and sequence); they
+	// are written, as the builder counts their fragments as duplicates.
+	Duplicates uint64
+	// Unexpected are batches of a source or share the readout was not
+	// said to have; written, as the builder counts them.
+	Unexpected uint64
+	// OtherRuns counts skipped batches by run number.
+	OtherRuns map[uint32]uint64
+	// Undecodable counts stored messages that are not fragment batches
+	// or are not on a fragment subject; they are not written.
+	Undecodable uint64
+	// Idle says Save stopped because nothing new arrived for Idle.
+	Idle bool
+}
+
+// Complete says every expected pair ended with no batch missing.
+func (r Result) Complete() bool {
+	return r.Ended == r.Expected && len(r.Gaps) == 0 && r.Undecodable == 0
+}
+
+// Problems describes what makes the result incomplete, one item per kind.
+func (r Result) Problems() []string {
+	var out []string
+	if n := len(r.NotEnded); n > 0 {
+		out = append(out, fmt.Sprintf("%d of %d source/share pairs sent no end-of-run batch (%s)", n, r.Expected, clip(r.NotEnded)))
+	}
+	if n := len(r.Gaps); n > 0 {
+		var missing uint64
+		names := make([]string, n)
+		for i, g := range r.Gaps {
+			missing += g.To - g.From + 1
+			names[i] = g.String()
+		}
+		out = append(out, fmt.Sprintf("%d batches missing (%s)", missing, clip(names)))
+	}
+	if r.Undecodable > 0 {
+		out = append(out, fmt.Sprintf("%d stored messages were not fragment batches", r.Undecodable))
+	}
+	return out
+}
+
+func clip(items []string) string {
+	const show = 4
+	if len(items) <= show {
+		return strings.Join(items, ", ")
+	}
+	return strings.Join(items[:show], ", ") + fmt.Sprintf(", and %d more", len(items)-show)
+}
+
+// pair is a (share, source) key.
+type pair struct {
+	partition int
+	source    uint32
+}
+
+// pairState is what Save knows of one pair.
+type pairState struct {
+	next  uint64 // the sequence number expected next
+	ended bool
+	// first is the first timestamp of the pair's last batch with
+	// fragments, which a batch without fragments (an end-of-run batch)
+	// is filed under, as the readout writes it into a file.
+	first int64
+}
+
+// fetchBatch is how many messages one fetch asks for.
+const fetchBatch = 512
+
+// Save reads the stream from its first message and writes the batches of
+// one run to the writer o.Create returns, in the order the server stored
+// them, byte for byte. It stops when every expected pair has ended and
+// nothing more is stored, or when nothing new arrives for o.Idle, or when
+// ctx ends (returning ctx's error with what was written so far). The
+// result says whether the recording is complete; an incomplete one is not
+// an error, the caller decides.
+func Save(ctx context.Context, js jetstream.JetStream, o SaveOptions) (Result, error) {
+	name := o.Name
+	if name == "" {
+		name = DefaultName(o.Subjects)
+	}
+	res := Result{Stream: name, Run: o.Run, OtherRuns: map[uint32]uint64{}}
+	if o.Create == nil {
+		return res, fmt.Errorf("capture: save %s: no writer to create", name)
+	}
+	if len(o.Sources) == 0 || o.Partitions < 1 {
+		return res, fmt.Errorf("capture: save %s: want the readout's sources and at least one builder share", name)
+	}
+	idle := o.Idle
+	if idle <= 0 {
+		idle = 5 * time.Second
+	}
+	pairs := map[pair]*pairState{}
+	for p := 0; p < o.Partitions; p++ {
+		for _, s := range o.Sources {
+			pairs[pair{p, s}] = &pairState{}
+		}
+	}
+	res.Expected = len(pairs)
+	prefix := subject(o.Subjects)
+	prefix = prefix[:len(prefix)-1]
+
+	cons, err := js.OrderedConsumer(ctx, name, jetstream.OrderedConsumerConfig{DeliverPolicy: jetstream.DeliverAllPolicy})
+	if err != nil {
+		return res, describe(name, err)
+	}
+	sv := &saver{res: &res, prefix: prefix, pairs: pairs, crossings: map[uint64]struct{}{}, create: o.Create}
+	last := time.Now()
+	pending := uint64(1) // unknown until the first message
+	for {
+		if ctx.Err() != nil {
+			sv.finish()
+			return res, ctx.Err()
+		}
+		if res.Ended == res.Expected && pending == 0 {
+			break
+		}
+		batch, err := cons.Fetch(fetchBatch, jetstream.FetchMaxWait(fetchWait(idle)))
+		if err != nil {
+			sv.finish()
+			return res, describe(name, err)
+		}
+		got := 0
+		for m := range batch.Messages() {
+			got++
+			if md, err := m.Metadata(); err == nil {
+				pending = md.NumPending
+			}
+			if err := sv.take(m.Subject(), m.Data()); err != nil {
+				sv.finish()
+				return res, err
+			}
+		}
+		if err := batch.Error(); err != nil && !errors.Is(err, context.DeadlineExceeded) && !errors.Is(err, jetstream.ErrNoMessages) {
+			sv.finish()
+			return res, describe(name, err)
+		}
+		if got > 0 {
+			last = time.Now()
+			continue
+		}
+		pending = 0
+		if time.Since(last) >= idle {
+			res.Idle = res.Ended < res.Expected
+			break
+		}
+	}
+	sv.finish()
+	return res, nil
+}
+
+// fetchWait is how long one fetch waits for messages: short enough that
+// Save notices its idle limit and the end of the run promptly.
+func fetchWait(idle time.Duration) time.Duration {
+	return min(idle, 250*time.Millisecond)
+}
+
+// saver is the state of one Save.
+type saver struct {
+	res       *Result
+	prefix    string
+	pairs     map[pair]*pairState
+	crossings map[uint64]struct{}
+	create    func(run uint32) (Writer, error)
+	w         Writer
+	b         pb.FragmentBatch
+}
+
+// take accounts for one stored message and writes it if it belongs to the
+// run.
+func (sv *saver) take(subj string, data []byte) error {
+	res, b := sv.res, &sv.b
+	part, src, ok := parseSubject(subj, sv.prefix)
+	if !ok || proto.Unmarshal(data, b) != nil {
+		res.Undecodable++
+		return nil
+	}
+	if res.Run == 0 {
+		res.Run = b.Run
+	}
+	if b.Run != res.Run {
+		res.OtherRuns[b.Run]++
+		return nil
+	}
+	if sv.w == nil {
+		w, err := sv.create(res.Run)
+		if err != nil {
+			return err
+		}
+		sv.w = w
+	}
+	st, known := sv.pairs[pair{part, src}]
+	if !known {
+		st = &pairState{}
+	}
+	for _, f := range b.Fragments {
+		sv.crossings[f.Orbit<<12|uint64(f.Bcid)] = struct{}{}
+	}
+	if len(b.Fragments) > 0 {
+		st.first = b.Fragments[0].TimestampNs
+	}
+	if err := sv.w.WriteBatch(src, part, st.first, data, len(b.Fragments)); err != nil {
+		return fmt.Errorf("capture: %w", err)
+	}
+	res.Batches++
+	res.Fragments += uint64(len(b.Fragments))
+	if !known {
+		res.Unexpected++
+		return nil
+	}
+	switch {
+	case b.Sequence < st.next:
+		res.Duplicates++
+	case b.Sequence > st.next:
+		res.Gaps = append(res.Gaps, Gap{Partition: part, Source: src, From: st.next, To: b.Sequence - 1})
+		fallthrough
+	default:
+		st.next = b.Sequence + 1
+	}
+	if b.EndOfRun && !st.ended {
+		st.ended = true
+		res.Ended++
+	}
+	return nil
+}
+
+// parseSubject reads the builder share and source from a fragment
+// subject, prefix.<partition>.<source>.
+func parseSubject(subj, prefix string) (int, uint32, bool) {
+	rest, ok := strings.CutPrefix(subj, prefix)
+	if !ok {
+		return 0, 0, false
+	}
+	ps, ss, ok := strings.Cut(rest, ".")
+	if !ok {
+		return 0, 0, false
+	}
+	p, err1 := strconv.ParseUint(ps, 10, 16)
+	s, err2 := strconv.ParseUint(ss, 10, 32)
+	if err1 != nil || err2 != nil {
+		return 0, 0, false
+	}
+	return int(p), uint32(s), true
+}
+
+// finish fills in the pairs that never ended and the crossing count.
+func (sv *saver) finish() {
+	res := sv.res
+	res.Crossings = uint64(len(sv.crossings))
+	if sv.w != nil {
+		sv.w.AddCrossings(res.Crossings)
+	}
+	res.NotEnded = res.NotEnded[:0]
+	var keys []pair
+	for k, st := range sv.pairs {
+		if !st.ended {
+			keys = append(keys, k)
+		}
+	}
+	sort.Slice(keys, func(i, j int) bool {
+		if keys[i].source != keys[j].source {
+			return keys[i].source < keys[j].source
+		}
+		return keys[i].partition < keys[j].partition
+	})
+	for _, k := range keys {
+		res.NotEnded = append(res.NotEnded, fmt.Sprintf("source %d share %d", k.source, k.partition))
+	}
+}

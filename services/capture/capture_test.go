@@ -1,0 +1,367 @@
+package capture
+
+import (
+	"context"
+	"errors"
+	"io"
+	"path/filepath"
+	"slices"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats-server/v2/server"
+	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
+	"github.com/prometheus/client_golang/prometheus"
+	"google.golang.org/protobuf/proto"
+
+	"github.com/bunchsieve/bunchsieve/detector"
+	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+	"github.com/bunchsieve/bunchsieve/services/emulator"
+	"github.com/bunchsieve/bunchsieve/services/recording"
+	"github.com/bunchsieve/bunchsieve/services/transport"
+)
+
+// jsServer starts an embedded server with JetStream storing in dir.
+func jsServer(t *testing.T, dir string) *server.Server {
+	t.Helper()
+	srv, err := transport.EmbeddedWith(transport.EmbeddedOptions{Port: -1, StoreDir: dir, MaxStore: 256 << 20})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
+	return srv
+}
+
+func connect(t *testing.T, srv *server.Server) (*nats.Conn, jetstream.JetStream) {
+	t.Helper()
+	nc, err := transport.Connect(srv.ClientURL(), t.Name())
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(nc.Close)
+	js, err := jetstream.New(nc)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return nc, js
+}
+
+// emulate runs the readout emulator for crossings crossings into sink,
+// with batch boundaries that depend on the crossing count only (no
+// flush by age), so two runs with one seed send the same batches.
+func emulate(t *testing.T, sink emulator.Sink, crossings uint64, partitions int) []uint32 {
+	t.Helper()
+	d := detector.DefaultDescription()
+	part, err := detector.NewPartition(d.Geometry, 8)
+	if err != nil {
+		t.Fatal(err)
+	}
+	gen, err := detector.NewSimpleGenerator(d, part, 3, detector.SimpleConfig{DijetFraction: 0.2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ids := part.SourceIDs()
+	emu, err := emulator.New(emulator.Config{Run: 4, Seed: 3, Crossings: crossings, BatchCrossings: 16, Partitions: partitions,
+		MaxBatchAge: time.Hour}, gen, ids, sink, prometheus.NewRegistry())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := emu.Run(context.Background()); err != nil {
+		t.Fatal(err)
+	}
+	return ids
+}
+
+// memWriter keeps what Save writes.
+type memWriter struct {
+	batches   []recording.Batch
+	crossings uint64
+}
+
+func (m *memWriter) WriteBatch(source uint32, partition int, firstTs int64, data []byte, fragments int) error {
+	m.batches = append(m.batches, recording.Batch{SourceID: source, Partition: partition, FirstTimestampNs: firstTs,
+		Fragments: fragments, Data: slices.Clone(data)})
+	return nil
+}
+
+func (m *memWriter) AddCrossings(n uint64) { m.crossings += n }
+
+func save(t *testing.T, js jetstream.JetStream, o SaveOptions) (Result, *memWriter) {
+	t.Helper()
+	w := &memWriter{}
+	o.Create = func(run uint32) (Writer, error) { return w, nil }
+	ctx, cancel := context.WithTimeout(context.Background(), time.Minute)
+	defer cancel()
+	res, err := Save(ctx, js, o)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return res, w
+}
+
+// withoutSendTime decodes a batch and clears its publish time, the one
+// field a live publish and a file recording set differently.
+func withoutSendTime(t *testing.T, data []byte) *pb.FragmentBatch {
+	t.Helper()
+	var b pb.FragmentBatch
+	if err := proto.Unmarshal(data, &b); err != nil {
+		t.Fatal(err)
+	}
+	b.SentUnixNs = 0
+	return &b
+}
+
+// A run published live and stored by the stream comes out batch for
+// batch as the same emulator writes it straight into a file: same order,
+// sources, builder shares, first timestamps and fragments (compared with
+// proto.Equal, protobuf's own comparison, after clearing the publish
+// time), the end-of-run batches included; and the server's stored count
+// agrees.
+func TestSaveGivesWhatTheReadoutPublished(t *testing.T) {
+	srv := jsServer(t, t.TempDir())
+	nc, js := connect(t, srv)
+	s := transport.Subjects{Prefix: "cap.test"}
+	ctx := context.Background()
+	st, created, err := Open(ctx, js, Options{Subjects: s, MaxBytes: 64 << 20})
+	if err != nil || !created {
+		t.Fatalf("open: created %v, %v", created, err)
+	}
+	if got := st.CachedInfo().Config.Name; got != "cap_test_fragments" {
+		t.Errorf("stream name %q, want cap_test_fragments", got)
+	}
+	const crossings = 1000
+	ids := emulate(t, emulator.NewNATSSink(nc, s), crossings, 2)
+
+	direct := filepath.Join(t.TempDir(), "direct.bss")
+	fw, err := recording.Create(direct, &pb.StreamHeader{Run: 4, SourceIds: ids, Partitions: 2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	emulate(t, emulator.FileSink{W: fw}, crossings, 2)
+	if err := fw.Close(); err != nil {
+		t.Fatal(err)
+	}
+	r, err := recording.Open(direct)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer r.Close()
+	var want []recording.Batch
+	for {
+		b, err := r.Next()
+		if errors.Is(err, io.EOF) {
+			break
+		}
+		if err != nil {
+			t.Fatal(err)
+		}
+		b.Data = slices.Clone(b.Data)
+		want = append(want, b)
+	}
+
+	res, w := save(t, js, SaveOptions{Subjects: s, Sources: ids, Partitions: 2, Idle: 2 * time.Second})
+	if !res.Complete() || res.Idle {
+		t.Fatalf("save incomplete: %v (%+v)", res.Problems(), res)
+	}
+	if res.Run != 4 || res.Crossings != crossings || w.crossings != crossings || res.Expected != 2*len(ids) || res.Ended != res.Expected {
+		t.Errorf("run %d, %d crossings (writer %d), %d of %d ended; want run 4, %d crossings, all %d ended",
+			res.Run, res.Crossings, w.crossings, res.Ended, res.Expected, crossings, 2*len(ids))
+	}
+	if len(w.batches) != len(want) || res.Batches != uint64(len(want)) {
+		t.Fatalf("saved %d batches (result %d), the direct recording has %d", len(w.batches), res.Batches, len(want))
+	}
+	var fragments uint64
+	for i, g := range w.batches {
+		x := want[i]
+		fragments += uint64(x.Fragments)
+		if g.SourceID != x.SourceID || g.Partition != x.Partition || g.FirstTimestampNs != x.FirstTimestampNs || g.Fragments != x.Fragments {
+			t.Fatalf("batch %d: source %d share %d first %d, %d fragments; direct: source %d share %d first %d, %d fragments",
+				i, g.SourceID, g.Partition, g.FirstTimestampNs, g.Fragments, x.SourceID, x.Partition, x.FirstTimestampNs, x.Fragments)
+		}
+		if !proto.Equal(withoutSendTime(t, g.Data), withoutSendTime(t, x.Data)) {
+			t.Fatalf("batch %d (source %d share %d): contents differ from the direct recording", i, g.SourceID, g.Partition)
+		}
+	}
+	if res.Fragments != fragments {
+		t.Errorf("result counts %d fragments, the batches hold %d", res.Fragments, fragments)
+	}
+	info, err := st.Info(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if info.State.Msgs != uint64(len(want)) {
+		t.Errorf("the server stored %d messages, the readout published %d batches", info.State.Msgs, len(want))
+	}
+	// Opening again finds the same stream.
+	if _, created, err := Open(ctx, js, Options{Subjects: s, MaxBytes: 64 << 20}); err != nil || created {
+		t.Errorf("second open: created %v, %v; want the existing stream", created, err)
+	}
+	// A stream of that name storing something else is refused, not reused.
+	if _, _, err := Open(ctx, js, Options{Name: "cap_test_fragments", Subjects: transport.Subjects{Prefix: "other"}, MaxBytes: 64 << 20}); err == nil || !strings.Contains(err.Error(), "exists and stores") {
+		t.Errorf("open with other subjects: %v", err)
+	}
+}
+
+// What the stream stored survives a server restart: a new server on the
+// same store directory (the recorder was never running during the run)
+// gives the whole run.
+func TestSaveAfterServerRestart(t *testing.T) {
+	dir := t.TempDir()
+	srv := jsServer(t, dir)
+	nc, js := connect(t, srv)
+	s := transport.Subjects{}
+	if _, _, err := Open(context.Background(), js, Options{Subjects: s, MaxBytes: 64 << 20}); err != nil {
+		t.Fatal(err)
+	}
+	ids := emulate(t, emulator.NewNATSSink(nc, s), 500, 1)
+	nc.Close()
+	srv.Shutdown()
+	srv.WaitForShutdown()
+
+	srv2 := jsServer(t, dir)
+	_, js2 := connect(t, srv2)
+	res, w := save(t, js2, SaveOptions{Subjects: s, Sources: ids, Partitions: 1, Idle: 2 * time.Second})
+	if !res.Complete() || res.Crossings != 500 || len(w.batches) == 0 {
+		t.Fatalf("after the restart: complete %v (%v), %d crossings, %d batches; want the whole run of 500 crossings",
+			res.Complete(), res.Problems(), res.Crossings, len(w.batches))
+	}
+}
+
+// publishBatch publishes a hand-made batch of n fragments.
+func publishBatch(t *testing.T, nc *nats.Conn, s transport.Subjects, part int, b *pb.FragmentBatch, n int) {
+	t.Helper()
+	for k := 0; k < n; k++ {
+		b.Fragments = append(b.Fragments, &pb.Fragment{SourceId: b.SourceId, Run: b.Run, Orbit: b.Sequence + 1, Bcid: uint32(k + 1), TimestampNs: int64(k)})
+	}
+	data, err := proto.Marshal(b)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := nc.Publish(s.Fragments(part, b.SourceId), data); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// Every way a stored run can fall short is named: a missing batch (a gap
+// in a pair's sequence numbers), a pair that never ended, a batch stored
+// twice, a source the readout does not have, a message that is not a
+// batch; batches of another run are skipped and counted. Save gives up
+// after the idle time, as the last pair never ends.
+func TestSaveNamesWhatIsMissing(t *testing.T) {
+	srv := jsServer(t, t.TempDir())
+	nc, js := connect(t, srv)
+	s := transport.Subjects{Prefix: "gaps"}
+	if _, _, err := Open(context.Background(), js, Options{Subjects: s, MaxBytes: 64 << 20}); err != nil {
+		t.Fatal(err)
+	}
+	pub := func(src uint32, run uint32, seq uint64, end bool) {
+		publishBatch(t, nc, s, 0, &pb.FragmentBatch{SourceId: src, Run: run, Sequence: seq, EndOfRun: end}, 2)
+	}
+	pub(1, 7, 0, false)
+	pub(1, 7, 1, false)
+	pub(1, 7, 3, false) // 2 is missing
+	pub(1, 7, 4, true)
+	pub(2, 7, 0, false)
+	pub(2, 7, 0, false) // stored twice
+	pub(2, 7, 1, true)
+	pub(3, 7, 0, false) // never ends
+	pub(9, 7, 0, true)  // not one of the readout's sources
+	pub(1, 8, 0, true)  // another run
+	if err := nc.Publish(s.Fragments(0, 1), []byte{0xff, 0xff, 0xff}); err != nil {
+		t.Fatal(err)
+	}
+	if err := nc.Flush(); err != nil {
+		t.Fatal(err)
+	}
+	start := time.Now()
+	res, w := save(t, js, SaveOptions{Subjects: s, Sources: []uint32{1, 2, 3}, Partitions: 1, Idle: 500 * time.Millisecond})
+	if time.Since(start) < 500*time.Millisecond || !res.Idle {
+		t.Errorf("save ended after %v, idle %v; want it to wait the idle time for source 3", time.Since(start), res.Idle)
+	}
+	if res.Complete() {
+		t.Fatal("an incomplete run is reported complete")
+	}
+	if res.Run != 7 || res.Ended != 2 || res.Expected != 3 || !slices.Equal(res.NotEnded, []string{"source 3 share 0"}) {
+		t.Errorf("run %d, %d of %d ended, not ended %v", res.Run, res.Ended, res.Expected, res.NotEnded)
+	}
+	if !slices.Equal(res.Gaps, []Gap{{Partition: 0, Source: 1, From: 2, To: 2}}) {
+		t.Errorf("gaps %v, want source 1 batch 2", res.Gaps)
+	}
+	if res.Duplicates != 1 || res.Unexpected != 1 || res.Undecodable != 1 || res.OtherRuns[8] != 1 {
+		t.Errorf("duplicates %d, unexpected %d, undecodable %d, other runs %v; want 1 each (run 8)", res.Duplicates, res.Unexpected, res.Undecodable, res.OtherRuns)
+	}
+	// Everything of run 7 that is a batch was written, duplicates and the
+	// unknown source too (the builder counts them); 9 batches of 2.
+	if len(w.batches) != 9 || res.Batches != 9 || res.Fragments != 18 {
+		t.Errorf("wrote %d batches (result %d, %d fragments), want 9 and 18", len(w.batches), res.Batches, res.Fragments)
+	}
+	// Crossings are counted once whatever the sources: the batches above
+	// have orbits 1, 2, 4 and 5 (sequence + 1), with bcids 1 and 2.
+	if res.Crossings != 8 {
+		t.Errorf("%d crossings, want 8", res.Crossings)
+	}
+	p := strings.Join(res.Problems(), "; ")
+	for _, want := range []string{"1 of 3 source/share pairs sent no end-of-run batch (source 3 share 0)", "1 batches missing (source 1 share 0 batch 2)", "1 stored messages were not fragment batches"} {
+		if !strings.Contains(p, want) {
+			t.Errorf("problems %q lack %q", p, want)
+		}
+	}
+	// The other run is there to be saved on its own; the message that is
+	// no batch could have been one of its, so it counts against it too.
+	res8, _ := save(t, js, SaveOptions{Subjects: s, Run: 8, Sources: []uint32{1}, Partitions: 1, Idle: 300 * time.Millisecond})
+	if res8.Ended != 1 || len(res8.Gaps) != 0 || res8.Undecodable != 1 || res8.Batches != 1 || res8.OtherRuns[7] != 9 {
+		t.Errorf("run 8: %v, %d batches, %d of run 7 skipped", res8.Problems(), res8.Batches, res8.OtherRuns[7])
+	}
+}
+
+// A stream that fills up refuses what comes after (discard new), so an
+// overflowing recording keeps its start and is saved as incomplete,
+// naming the batches and ends it refused, rather than quietly losing its
+// beginning.
+func TestFullStreamKeepsItsStart(t *testing.T) {
+	srv := jsServer(t, t.TempDir())
+	nc, js := connect(t, srv)
+	s := transport.Subjects{Prefix: "full"}
+	if _, _, err := Open(context.Background(), js, Options{Subjects: s, MaxBytes: 64 << 10}); err != nil {
+		t.Fatal(err)
+	}
+	ids := emulate(t, emulator.NewNATSSink(nc, s), 2000, 1)
+	res, w := save(t, js, SaveOptions{Subjects: s, Sources: ids, Partitions: 1, Idle: 500 * time.Millisecond})
+	// The small end-of-run batches may still fit where full ones did not,
+	// so what shows is missing batches or missing ends.
+	if res.Complete() || len(res.Gaps)+len(res.NotEnded) == 0 {
+		t.Fatalf("an overflowed stream saved as complete: %+v", res)
+	}
+	if len(w.batches) == 0 {
+		t.Fatal("nothing saved")
+	}
+	var first pb.FragmentBatch
+	if err := proto.Unmarshal(w.batches[0].Data, &first); err != nil || first.Sequence != 0 {
+		t.Errorf("the first saved batch has sequence %d (%v), want 0: the start was kept", first.Sequence, err)
+	}
+	if res.Crossings >= 2000 {
+		t.Errorf("%d crossings saved from a 64 KiB stream", res.Crossings)
+	}
+}
+
+// Without JetStream on the server, opening says so; a size limit the
+// server's store cannot hold is named with what to change.
+func TestOpenWithoutJetStream(t *testing.T) {
+	srv, err := transport.Embedded("127.0.0.1", -1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer func() { srv.Shutdown(); srv.WaitForShutdown() }()
+	_, js := connect(t, srv)
+	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+	defer cancel()
+	if _, _, err := Open(ctx, js, Options{}); err == nil || !strings.Contains(err.Error(), "JetStream off") {
+		t.Errorf("open without JetStream: %v", err)
+	}
+	_, js2 := connect(t, jsServer(t, t.TempDir()))
+	if _, _, err := Open(ctx, js2, Options{MaxBytes: 1 << 40}); err == nil || !strings.Contains(err.Error(), "--max-mib") {
+		t.Errorf("open with 1 TiB on a 256 MiB store: %v", err)
+	}
+}

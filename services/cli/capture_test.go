@@ -1,0 +1,174 @@
+package cli
+
+import (
+	"fmt"
+	"os"
+	"path/filepath"
+	"regexp"
+	"strconv"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/bunchsieve/bunchsieve/services/recording"
+	"github.com/bunchsieve/bunchsieve/services/transport"
+)
+
+// The durable recording from end to end, as a user drives it: open the
+// stream on a JetStream-enabled server, run the readout against it, save
+// the run into a file, replay the file through the menu. The rates come
+// out exactly as for the same crossings written by record (same seed),
+// which never went through NATS; removing the stream leaves nothing to
+// save.
+func TestCaptureCommands(t *testing.T) {
+	url := jetStreamServer(t)
+	dir := t.TempDir()
+
+	code, out, errs := runCLI(t, time.Minute, "capture", "open", "--nats", url, "--max-mib", "64")
+	if code != 0 || !strings.Contains(out, "stream bunchsieve_fragments created, storing bunchsieve.frag.>") {
+		t.Fatalf("capture open: exit %d\n%s%s", code, out, errs)
+	}
+	if code, out, errs = runCLI(t, time.Minute, "readout", "--nats", url, "--crossings", "800", "--seed", "11", "--rate", "0"); code != 0 {
+		t.Fatalf("readout: exit %d\n%s%s", code, out, errs)
+	}
+	kept := filepath.Join(dir, "kept.bss")
+	code, out, errs = runCLI(t, time.Minute, "capture", "save", "--nats", url, "--out", kept, "--idle", "2s", "--seed", "11")
+	if code != 2 || !strings.Contains(errs, "-seed") {
+		t.Errorf("capture save --seed: exit %d, %s; want an unknown flag (the seed is the readout's)", code, errs)
+	}
+	code, out, errs = runCLI(t, time.Minute, "capture", "save", "--nats", url, "--out", kept, "--idle", "2s")
+	if code != 0 || !strings.Contains(out, "800 crossings") || !strings.Contains(out, "16 of 16 source/share pairs ended; complete") {
+		t.Fatalf("capture save: exit %d\n%s%s", code, out, errs)
+	}
+	direct := filepath.Join(dir, "direct.bss")
+	if code, out, errs = runCLI(t, time.Minute, "record", "--crossings", "800", "--seed", "11", "--out", direct); code != 0 {
+		t.Fatalf("record: exit %d\n%s%s", code, out, errs)
+	}
+	var rates [2][]byte
+	for i, stream := range []string{kept, direct} {
+		rd := filepath.Join(dir, "report"+string(rune('a'+i)))
+		if code, out, errs = runCLI(t, 2*time.Minute, "replay", "--stream", stream, "--out", rd, "--no-progress"); code != 0 {
+			t.Fatalf("replay %s: exit %d\n%s%s", stream, code, out, errs)
+		}
+		var err error
+		if rates[i], err = os.ReadFile(filepath.Join(rd, "rates.csv")); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if string(rates[0]) != string(rates[1]) {
+		t.Errorf("rates of the saved run differ from those of the recorded one:\n%s\n---\n%s", rates[0], rates[1])
+	}
+
+	if code, out, errs = runCLI(t, time.Minute, "capture", "remove", "--nats", url); code != 0 || !strings.Contains(out, "removed") {
+		t.Fatalf("capture remove: exit %d\n%s%s", code, out, errs)
+	}
+	code, _, errs = runCLI(t, time.Minute, "capture", "save", "--nats", url, "--out", filepath.Join(dir, "none.bss"))
+	if code != 1 || !strings.Contains(errs, "no stream bunchsieve_fragments") {
+		t.Errorf("save after remove: exit %d, %s", code, errs)
+	}
+}
+
+// jetStreamServer starts an embedded server with JetStream for one test
+// and returns its URL.
+func jetStreamServer(t *testing.T) string {
+	t.Helper()
+	srv, err := transport.EmbeddedWith(transport.EmbeddedOptions{Port: -1, StoreDir: t.TempDir(), MaxStore: 256 << 20})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
+	return srv.ClientURL()
+}
+
+// A run whose readout never ended is saved with what was stored, and the
+// command says what is missing and exits 1.
+func TestCaptureSaveIncomplete(t *testing.T) {
+	url := jetStreamServer(t)
+	if code, out, errs := runCLI(t, time.Minute, "capture", "open", "--nats", url, "--max-mib", "64", "--subject-prefix", "part"); code != 0 {
+		t.Fatalf("capture open: exit %d\n%s%s", code, out, errs)
+	}
+	// The readout sends to two builder shares; saving as if there were
+	// three leaves share 2 of every source without an end.
+	if code, out, errs := runCLI(t, time.Minute, "readout", "--nats", url, "--crossings", "200", "--builders", "2", "--subject-prefix", "part", "--sources", "4"); code != 0 {
+		t.Fatalf("readout: exit %d\n%s%s", code, out, errs)
+	}
+	out := filepath.Join(t.TempDir(), "part.bss")
+	code, stdout, errs := runCLI(t, time.Minute, "capture", "save", "--nats", url, "--out", out, "--idle", "300ms",
+		"--builders", "3", "--subject-prefix", "part", "--sources", "4")
+	if code != 1 || !strings.Contains(stdout, "8 of 12 source/share pairs ended; INCOMPLETE") ||
+		!strings.Contains(errs, "4 of 12 source/share pairs sent no end-of-run batch (source 1 share 2, ") {
+		t.Errorf("save with a share too many: exit %d\n%s%s", code, stdout, errs)
+	}
+	if info, err := os.Stat(out); err != nil || info.Size() == 0 {
+		t.Errorf("the incomplete run was not written: %v", err)
+	}
+}
+
+// up --capture stores the run in the embedded server's JetStream and
+// saves it at the end: every crossing the chain ran is in the file, and
+// the file replays.
+func TestUpCapture(t *testing.T) {
+	dir := t.TempDir()
+	kept := filepath.Join(dir, "up.bss")
+	code, out, errs := runCLI(t, time.Minute, "up", "--crossings", "700", "--quiet", "--metrics-addr", "", "--capture", kept)
+	if code != 0 || !strings.Contains(out, "capture: run 1 from stream bunchsieve_fragments: 700 crossings") || !strings.Contains(out, "; complete") {
+		t.Fatalf("up --capture: exit %d\n%s%s", code, out, errs)
+	}
+	r, err := recording.Open(kept)
+	if err != nil {
+		t.Fatal(err)
+	}
+	h := r.Header()
+	r.Close()
+	if h.Run != 1 || len(h.SourceIds) != 16 || h.Partitions != 1 || !strings.Contains(h.Producer, "capture save") {
+		t.Errorf("header: run %d, %d sources, %d shares, producer %q", h.Run, len(h.SourceIds), h.Partitions, h.Producer)
+	}
+	rd := filepath.Join(dir, "report")
+	if code, out, errs = runCLI(t, 2*time.Minute, "replay", "--stream", kept, "--out", rd, "--no-progress"); code != 0 || !strings.Contains(out, "replayed 700 events") {
+		t.Fatalf("replay: exit %d\n%s%s", code, out, errs)
+	}
+}
+
+// serve --jetstream-dir lets capture record the served runs: two runs
+// started with ctl go into one stream, and each is saved on its own.
+func TestServeCapture(t *testing.T) {
+	dir := t.TempDir()
+	tokenFile := filepath.Join(dir, "token")
+	addr, out := startServe(t, "--control", "127.0.0.1:0", "--metrics-addr", "", "--token-file", tokenFile,
+		"--jetstream-dir", filepath.Join(dir, "js"), "--crossings", "500", "--rate", "0")
+	m := regexp.MustCompile(`NATS (nats://\S+);`).FindStringSubmatch(out.String())
+	if m == nil {
+		t.Fatalf("no NATS URL in %q", out.String())
+	}
+	url := m[1]
+	if code, stdout, stderr := runCLI(t, time.Minute, "capture", "open", "--nats", url, "--max-mib", "64"); code != 0 {
+		t.Fatalf("capture open: exit %d\n%s%s", code, stdout, stderr)
+	}
+	ctl := func(args ...string) (int, string, string) {
+		return runCLI(t, 15*time.Second, append([]string{"ctl", "--addr", addr, "--token-file", tokenFile, "--timeout", "5s"}, args...)...)
+	}
+	for run := 1; run <= 2; run++ {
+		if code, stdout, stderr := ctl("start"); code != 0 {
+			t.Fatalf("start: exit %d, %q %q", code, stdout, stderr)
+		}
+		ended := fmt.Sprintf("run %d ended", run)
+		for deadline := time.Now().Add(30 * time.Second); ; {
+			_, stdout, _ := ctl("status")
+			if strings.Contains(stdout, ended) && strings.Contains(stdout, "phase ready") {
+				break
+			}
+			if time.Now().After(deadline) {
+				t.Fatalf("run %d did not end: %q", run, stdout)
+			}
+			time.Sleep(50 * time.Millisecond)
+		}
+	}
+	for run := 1; run <= 2; run++ {
+		path := filepath.Join(dir, fmt.Sprintf("run%d.bss", run))
+		code, stdout, stderr := runCLI(t, time.Minute, "capture", "save", "--nats", url, "--run", strconv.Itoa(run), "--out", path, "--idle", "2s")
+		want := fmt.Sprintf("capture: run %d from stream bunchsieve_fragments: 500 crossings", run)
+		if code != 0 || !strings.Contains(stdout, want) || !strings.Contains(stdout, "; complete") || !strings.Contains(stdout, "of run "+strconv.Itoa(3-run)+" skipped") {
+			t.Errorf("save run %d: exit %d\n%s%s", run, code, stdout, stderr)
+		}
+	}
+}
