@@ -3,6 +3,7 @@ package report
 import (
 	"errors"
 	"fmt"
+	"math"
 	"strings"
 
 	"github.com/bunchsieve/bunchsieve/detector"
@@ -147,6 +148,10 @@ func (a *accumulator) efficiency(ef *effAcc) Efficiency {
 	} else {
 		out.Fit = &ErfFit{X50: fit.X50, X50Err: fit.X50Err, Sigma: fit.Sigma, SigmaErr: fit.SigmaErr,
 			Plateau: fit.Plateau, PlateauErr: fit.PlateauErr, PlateauFixed: fit.PlateauFixed, Covariance: fit.Cov, Deviance: fit.Deviance, NDF: fit.NDF}
+		if !math.IsNaN(fit.PValue) {
+			p := fit.PValue
+			out.Fit.PValue = &p
+		}
 	}
 	return out
 }

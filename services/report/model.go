@@ -222,6 +222,9 @@ type ErfFit struct {
 	Covariance   [3][3]float64 `json:"covariance"`
 	Deviance     float64       `json:"deviance"`
 	NDF          int           `json:"ndf"`
+	// PValue is the chi-square tail probability of the deviance
+	// (stats.TurnOnFit.PValue); null without degrees of freedom.
+	PValue *float64 `json:"p_value"`
 }
 
 // Comparison puts another menu's rates beside the report's menu, rule by

@@ -102,8 +102,8 @@ func (r *Report) WriteTable(w io.Writer) error {
 			if f.PlateauFixed {
 				plateau = "1 (fixed at the limit)"
 			}
-			fmt.Fprintf(&b, "50%% point %.4g ± %.2g%s, width %.3g ± %.2g%s, plateau %s (deviance %.1f for %d degrees of freedom)\n",
-				f.X50, f.X50Err, unitSuffix(ef.Unit), f.Sigma, f.SigmaErr, unitSuffix(ef.Unit), plateau, f.Deviance, f.NDF)
+			fmt.Fprintf(&b, "50%% point %.4g ± %.2g%s, width %.3g ± %.2g%s, plateau %s (deviance %.1f for %d degrees of freedom%s)\n",
+				f.X50, f.X50Err, unitSuffix(ef.Unit), f.Sigma, f.SigmaErr, unitSuffix(ef.Unit), plateau, f.Deviance, f.NDF, fitQuality(f.PValue))
 		} else {
 			fmt.Fprintf(&b, "no fit (%s)\n", ef.FitError)
 		}
@@ -130,4 +130,22 @@ func (r *Report) WriteTable(w io.Writer) error {
 	}
 	_, err := io.WriteString(w, b.String())
 	return err
+}
+
+// poorFitP is the p-value below which the summary says that the curve
+// does not describe the bins: 1%, our own choice of a conventional level
+// (common practice for goodness-of-fit tests).
+const poorFitP = 0.01
+
+// fitQuality gives the p-value of a fit's deviance for the summary, with
+// a warning below poorFitP.
+func fitQuality(p *float64) string {
+	switch {
+	case p == nil:
+		return ""
+	case *p < poorFitP:
+		return fmt.Sprintf(", p = %.2g: POOR FIT, the curve does not describe these bins; read the bins, not the parameters", *p)
+	default:
+		return fmt.Sprintf(", p = %.2f", *p)
+	}
 }

@@ -28,6 +28,30 @@ func TestTableFitUnits(t *testing.T) {
 	}
 }
 
+// The fit line gives the deviance's p-value, and below 1% says that the
+// curve does not describe the bins; a fit without a p-value shows none.
+func TestTableFitQuality(t *testing.T) {
+	good, poor := 0.31, 0.0004
+	rep := &Report{Efficiencies: []Efficiency{
+		{Rule: "good", Reference: "met", Unit: "GeV", Fit: &ErfFit{X50: 100, Sigma: 10, Plateau: 1, Deviance: 20.1, NDF: 18, PValue: &good}},
+		{Rule: "poor", Reference: "met", Unit: "GeV", Fit: &ErfFit{X50: 100, Sigma: 10, Plateau: 1, Deviance: 61.0, NDF: 18, PValue: &poor}},
+		{Rule: "none", Reference: "met", Unit: "GeV", Fit: &ErfFit{X50: 100, Sigma: 10, Plateau: 1, Deviance: 1, NDF: 0}},
+	}}
+	var b bytes.Buffer
+	if err := rep.WriteTable(&b); err != nil {
+		t.Fatal(err)
+	}
+	for _, want := range []string{
+		"(deviance 20.1 for 18 degrees of freedom, p = 0.31)\n",
+		"(deviance 61.0 for 18 degrees of freedom, p = 0.0004: POOR FIT, the curve does not describe these bins; read the bins, not the parameters)\n",
+		"(deviance 1.0 for 0 degrees of freedom)\n",
+	} {
+		if !strings.Contains(b.String(), want) {
+			t.Errorf("table lacks %q:\n%s", want, b.String())
+		}
+	}
+}
+
 // The passed column counts events that passed a rule before prescale.
 // The menu's total is of events kept, which is another count: the total
 // row leaves the passed cell empty and gives the kept rate only.

@@ -8,6 +8,7 @@ import (
 	"gonum.org/v1/gonum/diff/fd"
 	"gonum.org/v1/gonum/mat"
 	"gonum.org/v1/gonum/optimize"
+	"gonum.org/v1/gonum/stat/distuv"
 )
 
 // TurnOn returns the error-function turn-on curve
@@ -53,6 +54,13 @@ type TurnOnFit struct {
 	// distributed with NDF degrees of freedom for well-filled bins.
 	Deviance float64
 	NDF      int
+	// PValue is the probability of a deviance at least this large if the
+	// curve described the data, from the chi-square distribution with NDF
+	// degrees of freedom: a small value (below 0.01, say) means the
+	// error-function shape does not describe these bins, whatever the
+	// errors of its parameters. Like the chi-square approximation it
+	// rests on, it is rough for bins with few events.
+	PValue float64
 	// Bins is the number of bins with events.
 	Bins int
 	// PlateauFixed is set when the best plateau would exceed 1: it is
@@ -243,6 +251,7 @@ func FitTurnOn(bins []EffBin) (TurnOnFit, error) {
 	}
 	p := []float64{out.X50, out.Sigma, out.Plateau}
 	out.Deviance = deviance(used, p)
+	out.PValue = devianceP(out.Deviance, out.NDF)
 	return out, nil
 }
 
@@ -462,6 +471,15 @@ func startValues(bins []EffBin) []float64 {
 		sigma = math.Max((hi-lo)/10, 1e-3)
 	}
 	return []float64{x50, sigma, math.Min(plateau, 1)}
+}
+
+// devianceP is the chi-square survival probability of a deviance d with
+// ndf degrees of freedom.
+func devianceP(d float64, ndf int) float64 {
+	if ndf < 1 || math.IsNaN(d) {
+		return math.NaN()
+	}
+	return distuv.ChiSquared{K: float64(ndf)}.Survival(math.Max(d, 0))
 }
 
 func deviance(bins []EffBin, par []float64) float64 {

@@ -392,3 +392,97 @@ func TestDeterminedCriteria(t *testing.T) {
 		t.Errorf("%q, want %q", u, want)
 	}
 }
+
+// The p-value of the deviance is the chi-square upper tail: at the
+// tabulated upper critical values it gives their tail probability
+// (NIST/SEMATECH e-Handbook of Statistical Methods, section 1.3.6.7.4,
+// upper critical values of the chi-square distribution; values from
+// memory, to the table's three decimals).
+func TestDevianceP(t *testing.T) {
+	for _, c := range []struct {
+		x    float64
+		ndf  int
+		tail float64
+	}{
+		{3.841, 1, 0.05}, {11.070, 5, 0.05}, {18.307, 10, 0.05}, {23.209, 10, 0.01}, {43.773, 30, 0.05}, {67.505, 50, 0.05},
+	} {
+		near(t, "tail", devianceP(c.x, c.ndf), c.tail, 2e-4)
+	}
+	if !math.IsNaN(devianceP(3, 0)) {
+		t.Error("a p-value without degrees of freedom")
+	}
+}
+
+// Fits of samples drawn from the curve itself give p-values spread
+// evenly over (0, 1) where every bin expects several passing and failing
+// events; with bins far below the turn-on or on the plateau (nearly all
+// fail or all pass, so their deviance is nearly 0 while they count as
+// degrees of freedom) the p-values lean high, so a poor fit is flagged
+// less often, never more. A two-step efficiency, which no single error
+// function describes, gets a p-value that says so.
+func TestFitTurnOnPValue(t *testing.T) {
+	r := rand.New(rand.NewPCG(3, 5))
+	const trials = 200
+	var low, high, lowAll int
+	for range trials {
+		var core []EffBin
+		for _, b := range syntheticTurnOn(r, 120, 15, 0.95, 200) {
+			if b.X > 95 && b.X < 155 { // expected efficiency 0.05 - 0.93
+				core = append(core, b)
+			}
+		}
+		f, err := FitTurnOn(core)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if f.PValue < 0.05 {
+			low++
+		}
+		if f.PValue > 0.5 {
+			high++
+		}
+		all, err := FitTurnOn(syntheticTurnOn(r, 120, 15, 0.95, 200))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if all.PValue < 0.05 {
+			lowAll++
+		}
+	}
+	t.Logf("core bins: %d of %d below 0.05, %d above 0.5; all bins: %d below 0.05", low, trials, high, lowAll)
+	// The binomial spread of 200 trials: 1.5% at 5%, 3.5% at 50%.
+	if frac := float64(low) / trials; frac < 0.01 || frac > 0.10 {
+		t.Errorf("%.1f%% of fits of the true curve have p < 0.05, want about 5%%", 100*frac)
+	}
+	if frac := float64(high) / trials; frac < 0.40 || frac > 0.60 {
+		t.Errorf("%.1f%% of fits of the true curve have p > 0.5, want about half", 100*frac)
+	}
+	if frac := float64(lowAll) / trials; frac > 0.10 {
+		t.Errorf("with the tails, %.1f%% of fits of the true curve have p < 0.05, want at most about 5%%", 100*frac)
+	}
+
+	var bins []EffBin
+	for x := 2.5; x < 250; x += 5 {
+		p := 0.0
+		switch {
+		case x > 150:
+			p = 1
+		case x > 80:
+			p = 0.5
+		}
+		k := 0
+		for range 4000 {
+			if r.Float64() < p {
+				k++
+			}
+		}
+		bins = append(bins, EffBin{X: x, Pass: k, Total: 4000})
+	}
+	f, err := FitTurnOn(bins)
+	if err != nil {
+		t.Fatalf("two steps: %v", err)
+	}
+	if !(f.PValue < 1e-6) {
+		t.Errorf("two steps fitted with one error function: deviance %.1f for %d, p = %g; want it flagged", f.Deviance, f.NDF, f.PValue)
+	}
+}
