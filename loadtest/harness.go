@@ -61,6 +61,14 @@ type Config struct {
 	// BaselineRuns is how many times each raw-transport baseline is
 	// measured; zero means 3, negative means no baseline.
 	BaselineRuns int
+	// Capture stores every step's fragment batches durably in a JetStream
+	// stream of the Network's servers (services/capture) while the step
+	// runs, as a deployment recording its runs would, and counts a batch
+	// the stream did not store as lost. The servers need JetStream on
+	// (EmbeddedStore, or a deployment with it). CaptureBytes caps each
+	// step's stream; zero means 2 GiB.
+	Capture      bool
+	CaptureBytes int64
 	// NoRelay leaves out the two-hop baseline.
 	NoRelay bool
 	// BaselineLength is about how long each baseline run lasts; zero
@@ -163,7 +171,7 @@ func Run(ctx context.Context, cfg Config) (*Report, error) {
 	rep := &Report{
 		Schema: SchemaVersion, StartedAt: time.Now().UTC().Truncate(time.Second),
 		Machine:   Machine{CPUs: runtime.NumCPU(), GOMAXPROCS: runtime.GOMAXPROCS(0), OS: runtime.GOOS, Arch: runtime.GOARCH, Go: runtime.Version(), Hostname: host},
-		Transport: cfg.Network.Describe(), Builders: ds.Partitions, Workers: cfg.Workers,
+		Transport: cfg.Network.Describe(), Builders: ds.Partitions, Workers: cfg.Workers, Capture: cfg.Capture,
 		Menu: cfg.Menu.Name, MenuHash: cfg.Menu.Hash, P99BoundMs: cfg.P99Bound.Seconds() * 1e3,
 		Dataset: DatasetInfo{
 			Origin: cfg.Origin, Crossings: ds.Crossings, Sources: len(ds.Sources), Partitions: ds.Partitions, Batches: len(ds.Batches),
@@ -304,8 +312,18 @@ func (h *harness) step(ctx context.Context, rateHz float64, index int, n uint64)
 	// garbage of the dataset's preparation or of the step before is not
 	// this step's to collect.
 	runtime.GC()
+	var keep *stepCapture
+	if cfg.Capture {
+		var err error
+		if keep, err = openStepCapture(cfg.Network, pc.subjects, cfg.CaptureBytes); err != nil {
+			return Step{}, err
+		}
+	}
 	p, err := newPipeline(pc)
 	if err != nil {
+		if keep != nil {
+			_ = keep.close()
+		}
 		return Step{}, err
 	}
 	defer p.close()
@@ -326,6 +344,17 @@ func (h *harness) step(ctx context.Context, rateHz float64, index int, n uint64)
 	res := p.run(ctx, crossings, rateHz, cfg.Drain, cfg.KeepMemory, cfg.MemoryEvery, progress)
 	st := Step{OfferedHz: rateHz, Laps: res.feed.Laps, CrossingsPlanned: crossings, FeedBehindMs: res.feed.Behind.Seconds() * 1e3}
 	st.Account = p.accounting(res.feed)
+	if keep != nil {
+		want := res.feed.Batches + uint64(len(ds.Ends))
+		n, err := keep.stored(want, 2*time.Second)
+		if cerr := keep.close(); err == nil {
+			err = cerr
+		}
+		if err != nil {
+			return Step{}, err
+		}
+		st.Account.Capture = &CaptureCount{Published: want, Stored: n}
+	}
 	switch {
 	case res.err != nil:
 		st.Error = res.err.Error()
@@ -398,6 +427,9 @@ func lossReason(a Accounting) string {
 	add(a.EventBatchesDropped, "event batches dropped")
 	add(a.FragmentBatchesUndecodable, "fragment batches undecodable")
 	add(a.EventBatchesUndecodable, "event batches undecodable")
+	if c := a.Capture; c != nil {
+		add(c.Published-min(c.Stored, c.Published), "fragment batches not stored by the capture")
+	}
 	if len(terms) == 0 {
 		return "accounting does not close"
 	}

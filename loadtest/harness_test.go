@@ -323,3 +323,48 @@ func TestClusterAccounting(t *testing.T) {
 		}
 	}
 }
+
+// With the capture on, every step's batches are stored in a JetStream
+// stream and counted: all of them when the stream has room, and when it
+// fills up the batches it refused count as lost and fail the step, with
+// the reason named (the latency bound is set out of reach: speed is not
+// judged here). The streams are removed after their steps.
+func TestCaptureCountsStoredBatches(t *testing.T) {
+	ds, err := Generate(GenerateConfig{Crossings: 2000, Seed: 2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	nw, err := EmbeddedStore(t.TempDir())
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(nw.Close)
+	for _, c := range []struct {
+		bytes int64
+		pass  bool
+	}{{64 << 20, true}, {64 << 10, false}} {
+		rep, err := Run(context.Background(), Config{Dataset: ds, Origin: "test", Network: nw, Workers: 1, Rates: []float64{0},
+			BaselineRuns: -1, Capture: true, CaptureBytes: c.bytes, P99Bound: time.Minute})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !rep.Capture || len(rep.Steps) != 1 {
+			t.Fatalf("capture %v, %d steps", rep.Capture, len(rep.Steps))
+		}
+		st := rep.Steps[0]
+		cc := st.Account.Capture
+		if cc == nil || cc.Published != st.Account.BatchesOffered+uint64(len(ds.Ends)) {
+			t.Fatalf("%d-byte stream: capture counts %+v for %d batches and %d end markers", c.bytes, cc, st.Account.BatchesOffered, len(ds.Ends))
+		}
+		if st.Pass != c.pass || (cc.Stored == cc.Published) != c.pass {
+			t.Errorf("%d-byte stream: pass %v (%s), stored %d of %d", c.bytes, st.Pass, st.Reason, cc.Stored, cc.Published)
+		}
+		if !c.pass && !strings.Contains(st.Reason, "fragment batches not stored by the capture") {
+			t.Errorf("reason %q does not name the capture", st.Reason)
+		}
+	}
+	// Nothing is left behind in the store.
+	if n := nw.srvs[0].GlobalAccount().JetStreamUsage().Streams; n != 0 {
+		t.Errorf("%d streams left in the store", n)
+	}
+}

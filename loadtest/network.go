@@ -41,6 +41,16 @@ func Embedded() (*Network, error) {
 	return &Network{Kind: "in-process", srvs: []*server.Server{srv}}, nil
 }
 
+// EmbeddedStore is Embedded with JetStream on, storing in dir, for a
+// load test with the durable capture (Config.Capture).
+func EmbeddedStore(dir string) (*Network, error) {
+	srv, err := transport.EmbeddedWith(transport.EmbeddedOptions{Port: -1, StoreDir: dir, MaxStore: 8 << 30})
+	if err != nil {
+		return nil, fmt.Errorf("loadtest: %w", err)
+	}
+	return &Network{Kind: "in-process", srvs: []*server.Server{srv}}, nil
+}
+
 // External connects to a running NATS deployment at url over TCP; a
 // comma-separated list names several servers of one cluster, which
 // connections take in turn.

@@ -33,7 +33,10 @@ type Report struct {
 	// P99BoundMs is the latency bound a step must meet to count as keeping
 	// up.
 	P99BoundMs float64 `json:"p99_bound_ms"`
-	Steps      []Step  `json:"steps"`
+	// Capture says every step's fragment batches were also stored in a
+	// JetStream stream (Config.Capture; Accounting.Capture has the counts).
+	Capture bool   `json:"capture"`
+	Steps   []Step `json:"steps"`
 	// Saturation is the passing step of highest offered rate, nil if none
 	// passed.
 	Saturation *Step `json:"saturation"`
@@ -181,6 +184,16 @@ type Accounting struct {
 	BuiltBy   []uint64    `json:"built_by"`
 	DecidedBy []uint64    `json:"decided_by"`
 	Rules     []RuleCount `json:"rules"`
+	// Capture counts the durable capture's batches (Config.Capture); nil
+	// without it.
+	Capture *CaptureCount `json:"capture,omitempty"`
+}
+
+// CaptureCount is what the capture stream of a step stored of the
+// fragment batches published, end-of-run batches included.
+type CaptureCount struct {
+	Published uint64 `json:"published"`
+	Stored    uint64 `json:"stored"`
 }
 
 // RuleCount is one rule's counts summed over the workers. Each worker
@@ -198,7 +211,8 @@ func (a Accounting) Lossless() bool {
 	return a.EventsLost == 0 && a.EventsDecided == a.CrossingsOffered && a.EventsBuilt == a.CrossingsOffered &&
 		a.EventsIncomplete == 0 && a.FragmentsReceived == a.FragmentsOffered && a.FragmentsInEvents == a.FragmentsOffered &&
 		a.FragmentBatchesDropped == 0 && a.EventBatchesDropped == 0 &&
-		a.FragmentBatchesUndecodable == 0 && a.EventBatchesUndecodable == 0
+		a.FragmentBatchesUndecodable == 0 && a.EventBatchesUndecodable == 0 &&
+		(a.Capture == nil || a.Capture.Stored == a.Capture.Published)
 }
 
 // Baseline is the raw-transport ceiling: the dataset's batches published
@@ -242,7 +256,11 @@ func (r *Report) Print(w io.Writer) {
 	m := r.Machine
 	fmt.Fprintf(w, "load test %s on %d CPUs (GOMAXPROCS %d), %s/%s, %s, GOGC %d; cores available to a spin test: %.2f before, %.2f after\n",
 		r.StartedAt.Format(time.RFC3339), m.CPUs, m.GOMAXPROCS, m.OS, m.Arch, m.Go, m.GOGC, m.AvailableCoresBefore, m.AvailableCoresAfter)
-	fmt.Fprintf(w, "transport %s; %d builder(s), %d selection worker(s); menu %s\n", r.Transport, r.Builders, r.Workers, r.Menu)
+	capture := ""
+	if r.Capture {
+		capture = "; every step's fragment batches stored by a JetStream capture (file storage)"
+	}
+	fmt.Fprintf(w, "transport %s; %d builder(s), %d selection worker(s); menu %s%s\n", r.Transport, r.Builders, r.Workers, r.Menu, capture)
 	fmt.Fprintf(w, "dataset %s: %d crossings x %d sources, %d batches, %.0f B/batch, %.0f B/crossing (prepared in %.1f s, not measured)\n\n",
 		d.Origin, d.Crossings, d.Sources, d.Batches, d.MeanBatchBytes, d.MeanCrossingBytes, d.PreparationSeconds)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"os"
 	"runtime"
 	"runtime/debug"
 	"strconv"
@@ -30,6 +31,7 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 	generator := fs.String("generator", "", "generator of the stream: simple (toy model) or physics (default from the configuration: simple)")
 	url := fs.String("nats", "", "NATS server `URL` (comma-separated for several); empty starts an embedded server reached in-process")
 	cluster := fs.Bool("cluster", false, "start three clustered NATS servers on loopback and connect over TCP (default --builders 2 --workers 2)")
+	keep := fs.Bool("capture", false, "also store every step's fragment batches in a JetStream stream, as a deployment recording its runs would (docs/capture.md): on the embedded server in a temporary directory, or on the --nats deployment (JetStream on); a batch not stored counts as lost")
 	builders := fs.Int("builders", 0, "builder instances sharing the crossings (default 1, or 2 with --cluster)")
 	workers := fs.Int("workers", 0, "selection workers in the queue group (default GOMAXPROCS, or 2 with --cluster)")
 	linger := fs.Duration("linger", 0, "how long the builders let a partly filled batch of built events wait for more, at most the builders' 2 ms tick (e.g. 1ms; pays with --batch 1)")
@@ -69,6 +71,8 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 	switch {
 	case *url != "" && *cluster:
 		return usagef("--nats and --cluster exclude each other")
+	case *keep && *cluster:
+		return usagef("--capture needs JetStream, which the --cluster servers run without; use the embedded server or --nats")
 	case *stream != "" && (set["sources"] || set["seed"] || set["batch"] || set["dataset"] || set["config"] || set["builders"] || set["generator"]):
 		return usagef("--stream fixes the sources, seed, generator, batch size, builder shares and length; leave those flags out")
 	case *datasetN == 0:
@@ -186,6 +190,13 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 		nw, err = loadtest.Cluster(3, 10*time.Second)
 	case *url != "":
 		nw, err = loadtest.External(*url)
+	case *keep:
+		store, serr := os.MkdirTemp("", "bunchsieve-loadtest-store-")
+		if serr != nil {
+			return fmt.Errorf("capture store: %w", serr)
+		}
+		defer os.RemoveAll(store)
+		nw, err = loadtest.EmbeddedStore(store)
 	default:
 		nw, err = loadtest.Embedded()
 	}
@@ -198,7 +209,7 @@ func runLoadtest(ctx context.Context, e *env, args []string) error {
 		Dataset: ds, Origin: origin, PreparedIn: prepared, Network: nw, Menu: menu, Workers: *workers, Linger: *linger,
 		Rates: offered, Duration: *duration, Crossings: *crossings, Refine: *refine, Half: *half,
 		P99Bound: *p99, Drain: *drain, BaselineRuns: *baselineRuns, BaselineLength: *baselineLength, Progress: progress,
-		SubjectPrefix: cfg.SubjectPrefix, ProbeCores: true,
+		SubjectPrefix: cfg.SubjectPrefix, ProbeCores: true, Capture: *keep,
 	}
 	if !set["subject-prefix"] {
 		lc.SubjectPrefix = "loadtest"
