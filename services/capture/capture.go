@@ -54,7 +54,9 @@ type Options struct {
 	// Name is the stream's name; empty means DefaultName(Subjects).
 	Name     string
 	Subjects transport.Subjects
-	// MaxBytes caps the stored bytes; zero means DefaultMaxBytes. A full
+	// MaxBytes caps the stored bytes; zero means DefaultMaxBytes, or the
+	// largest power-of-two share of it that the server's store can
+	// reserve (a server with a small store, such as serve's). A full
 	// stream refuses new batches rather than dropping its oldest, so a
 	// recording that overflowed shows as missing batches at its end
 	// instead of silently losing its start.
@@ -92,21 +94,37 @@ func Open(ctx context.Context, js jetstream.JetStream, o Options) (jetstream.Str
 	if maxBytes == 0 {
 		maxBytes = DefaultMaxBytes
 	}
-	replicas := max(o.Replicas, 1)
-	st, err = js.CreateStream(ctx, jetstream.StreamConfig{
-		Name:        name,
-		Description: "bunchsieve fragment batches of " + want,
-		Subjects:    []string{want},
-		Retention:   jetstream.LimitsPolicy,
-		MaxBytes:    maxBytes,
-		Discard:     jetstream.DiscardNew,
-		Storage:     jetstream.FileStorage,
-		Replicas:    replicas,
-	})
-	if err != nil {
-		return nil, false, describe(name, err)
+	for {
+		st, err = js.CreateStream(ctx, jetstream.StreamConfig{
+			Name:        name,
+			Description: "bunchsieve fragment batches of " + want,
+			Subjects:    []string{want},
+			Retention:   jetstream.LimitsPolicy,
+			MaxBytes:    maxBytes,
+			Discard:     jetstream.DiscardNew,
+			Storage:     jetstream.FileStorage,
+			Replicas:    max(o.Replicas, 1),
+		})
+		// Without a limit of the caller's, one the server's store can
+		// reserve is taken: halving down to minDefaultBytes.
+		if o.MaxBytes == 0 && insufficient(err) && maxBytes/2 >= minDefaultBytes {
+			maxBytes /= 2
+			continue
+		}
+		if err != nil {
+			return nil, false, describe(name, err)
+		}
+		return st, true, nil
 	}
-	return st, true, nil
+}
+
+// minDefaultBytes is the smallest limit Open tries when the caller set
+// none and the server's store cannot reserve DefaultMaxBytes.
+const minDefaultBytes = 64 << 20
+
+func insufficient(err error) bool {
+	var apiErr *jetstream.APIError
+	return errors.As(err, &apiErr) && apiErr.ErrorCode == errInsufficientStorage
 }
 
 // Remove deletes the stream name and everything it stored.
@@ -122,8 +140,7 @@ func Remove(ctx context.Context, js jetstream.JetStream, name string) error {
 const errInsufficientStorage jetstream.ErrorCode = 10047
 
 func describe(name string, err error) error {
-	var apiErr *jetstream.APIError
-	if errors.As(err, &apiErr) && apiErr.ErrorCode == errInsufficientStorage {
+	if insufficient(err) {
 		return fmt.Errorf("capture: stream %s: the server cannot reserve the stream's size limit in its store; give a smaller limit (--max-mib) or raise the server's max_file_store: %w", name, err)
 	}
 	if errors.Is(err, jetstream.ErrJetStreamNotEnabled) || errors.Is(err, jetstream.ErrJetStreamNotEnabledForAccount) || errors.Is(err, nats.ErrNoResponders) {
@@ -196,11 +213,17 @@ type Result struct {
 	// Gaps are missing batches: sequence numbers skipped before a later
 	// batch of the same pair arrived.
 	Gaps []Gap
-	// Duplicates are batches stored twice (same pair and sequence); they
-	// are written, as the builder counts their fragments as duplicates.
+	// Duplicates are batches stored twice (same pair and sequence, as a
+	// publisher resending after a reconnect stores them); they are
+	// written, as the builder counts their fragments as duplicates.
 	Duplicates uint64
+	// AfterEnd are batches of a pair that had already ended: a second run
+	// stored under the same run number (a restarted readout or run
+	// control). They are not written; the file holds the first run.
+	AfterEnd uint64
 	// Unexpected are batches of a source or share the readout was not
-	// said to have; written, as the builder counts them.
+	// said to have (a configuration other than the readout's); written,
+	// as the builder counts them.
 	Unexpected uint64
 	// OtherRuns counts skipped batches by run number.
 	OtherRuns map[uint32]uint64
@@ -209,11 +232,17 @@ type Result struct {
 	Undecodable uint64
 	// Idle says Save stopped because nothing new arrived for Idle.
 	Idle bool
+	// Full says the stream had reached its size limit, so the server
+	// refused the batches that came after (StoredBytes of MaxBytes);
+	// Problems gives it as the likely cause of what is missing.
+	Full                  bool
+	StoredBytes, MaxBytes int64
 }
 
-// Complete says every expected pair ended with no batch missing.
+// Complete says every expected pair ended with no batch missing, and
+// nothing was stored that does not belong to the run as configured.
 func (r Result) Complete() bool {
-	return r.Ended == r.Expected && len(r.Gaps) == 0 && r.Undecodable == 0
+	return r.Ended == r.Expected && len(r.Gaps) == 0 && r.Undecodable == 0 && r.AfterEnd == 0 && r.Unexpected == 0
 }
 
 // Problems describes what makes the result incomplete, one item per kind.
@@ -233,6 +262,15 @@ func (r Result) Problems() []string {
 	}
 	if r.Undecodable > 0 {
 		out = append(out, fmt.Sprintf("%d stored messages were not fragment batches", r.Undecodable))
+	}
+	if r.AfterEnd > 0 {
+		out = append(out, fmt.Sprintf("%d batches came after their source's end-of-run batch: a second run numbered %d was stored too (the file holds the first; save the other from a stream of its own)", r.AfterEnd, r.Run))
+	}
+	if r.Unexpected > 0 {
+		out = append(out, fmt.Sprintf("%d batches of sources or builder shares the configuration does not have (give --config, --sources and --builders as the readout had them)", r.Unexpected))
+	}
+	if r.Full && len(out) > 0 {
+		out = append(out, fmt.Sprintf("the stream is full (%.1f of %.1f MiB), so the server refused what came after", float64(r.StoredBytes)/(1<<20), float64(r.MaxBytes)/(1<<20)))
 	}
 	return out
 }
@@ -297,11 +335,17 @@ func Save(ctx context.Context, js jetstream.JetStream, o SaveOptions) (Result, e
 	prefix := subject(o.Subjects)
 	prefix = prefix[:len(prefix)-1]
 
-	cons, err := js.OrderedConsumer(ctx, name, jetstream.OrderedConsumerConfig{DeliverPolicy: jetstream.DeliverAllPolicy})
+	stream, err := js.Stream(ctx, name)
 	if err != nil {
 		return res, describe(name, err)
 	}
+	info := stream.CachedInfo()
+	if want := subject(o.Subjects); len(info.Config.Subjects) != 1 || info.Config.Subjects[0] != want {
+		return res, fmt.Errorf("capture: stream %s stores %v, not the batches of this subject prefix (%s)", name, info.Config.Subjects, want)
+	}
 	sv := &saver{res: &res, prefix: prefix, pairs: pairs, crossings: map[uint64]struct{}{}, create: o.Create}
+	rd := &reader{js: js, stream: name, next: 1}
+	defer rd.close()
 	last := time.Now()
 	pending := uint64(1) // unknown until the first message
 	for {
@@ -312,38 +356,118 @@ func Save(ctx context.Context, js jetstream.JetStream, o SaveOptions) (Result, e
 		if res.Ended == res.Expected && pending == 0 {
 			break
 		}
-		batch, err := cons.Fetch(fetchBatch, jetstream.FetchMaxWait(fetchWait(idle)))
-		if err != nil {
-			sv.finish()
-			return res, describe(name, err)
-		}
-		got := 0
-		for m := range batch.Messages() {
-			got++
-			if md, err := m.Metadata(); err == nil {
-				pending = md.NumPending
-			}
-			if err := sv.take(m.Subject(), m.Data()); err != nil {
-				sv.finish()
-				return res, err
-			}
-		}
-		if err := batch.Error(); err != nil && !errors.Is(err, context.DeadlineExceeded) && !errors.Is(err, jetstream.ErrNoMessages) {
-			sv.finish()
-			return res, describe(name, err)
-		}
-		if got > 0 {
-			last = time.Now()
-			continue
-		}
-		pending = 0
 		if time.Since(last) >= idle {
 			res.Idle = res.Ended < res.Expected
 			break
 		}
+		got, err := rd.fetch(ctx, fetchWait(idle), func(m jetstream.Msg, md *jetstream.MsgMetadata) error {
+			pending = md.NumPending
+			return sv.take(m.Subject(), m.Data())
+		})
+		if err != nil {
+			sv.finish()
+			return res, err
+		}
+		if got > 0 {
+			last = time.Now()
+		} else {
+			pending = 0
+		}
 	}
 	sv.finish()
+	sv.full(ctx, stream)
 	return res, nil
+}
+
+// reader reads a stream in order from sequence next on, through a
+// consumer of its own that it makes again whenever one fails (a server
+// restarting, a consumer lost), so that a save carries on where it was;
+// a stream that is gone ends it.
+type reader struct {
+	js     jetstream.JetStream
+	stream string
+	next   uint64
+	cons   jetstream.Consumer
+}
+
+// readerInactive is how long the server keeps a reader's consumer after
+// the reader stopped using it.
+const readerInactive = 30 * time.Second
+
+// fetch hands the messages that arrive within wait to take, in stream
+// order, and returns how many there were. A transport failure is not an
+// error: the next fetch starts over from the next sequence number, and
+// the caller's idle limit bounds how long that goes on.
+func (r *reader) fetch(ctx context.Context, wait time.Duration, take func(jetstream.Msg, *jetstream.MsgMetadata) error) (int, error) {
+	if r.cons == nil {
+		cctx, cancel := context.WithTimeout(ctx, 5*time.Second)
+		cons, err := r.js.CreateConsumer(cctx, r.stream, jetstream.ConsumerConfig{
+			DeliverPolicy: jetstream.DeliverByStartSequencePolicy, OptStartSeq: r.next,
+			AckPolicy: jetstream.AckNonePolicy, InactiveThreshold: readerInactive, MemoryStorage: true,
+		})
+		cancel()
+		if err != nil {
+			return 0, r.failed(ctx, wait)
+		}
+		r.cons = cons
+	}
+	batch, err := r.cons.Fetch(fetchBatch, jetstream.FetchMaxWait(wait))
+	if err != nil {
+		r.cons = nil
+		return 0, r.failed(ctx, wait)
+	}
+	got := 0
+	for m := range batch.Messages() {
+		md, err := m.Metadata()
+		if err != nil {
+			continue
+		}
+		if md.Sequence.Stream < r.next {
+			continue // delivered again after a failure
+		}
+		r.next = md.Sequence.Stream + 1
+		got++
+		if err := take(m, md); err != nil {
+			return got, err
+		}
+	}
+	if err := batch.Error(); err != nil && !errors.Is(err, nats.ErrTimeout) && !errors.Is(err, context.DeadlineExceeded) && !errors.Is(err, jetstream.ErrNoMessages) {
+		r.cons = nil
+		if got == 0 {
+			return 0, r.failed(ctx, wait)
+		}
+	}
+	return got, nil
+}
+
+// failed decides what a failed request means: the stream gone (or
+// JetStream off) ends the save; anything else is waited out.
+func (r *reader) failed(ctx context.Context, wait time.Duration) error {
+	cctx, cancel := context.WithTimeout(ctx, 2*time.Second)
+	_, err := r.js.Stream(cctx, r.stream)
+	cancel()
+	switch {
+	case errors.Is(err, jetstream.ErrStreamNotFound):
+		return fmt.Errorf("capture: stream %s was removed while it was being saved", r.stream)
+	case err != nil && (errors.Is(err, jetstream.ErrJetStreamNotEnabled) || errors.Is(err, jetstream.ErrJetStreamNotEnabledForAccount)):
+		return describe(r.stream, err)
+	}
+	select {
+	case <-ctx.Done():
+	case <-time.After(wait):
+	}
+	return nil
+}
+
+// close deletes the reader's consumer (the server would after
+// readerInactive anyway).
+func (r *reader) close() {
+	if r.cons == nil {
+		return
+	}
+	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Second)
+	defer cancel()
+	_ = r.js.DeleteConsumer(ctx, r.stream, r.cons.CachedInfo().Name)
 }
 
 // fetchWait is how long one fetch waits for messages: short enough that
@@ -361,12 +485,16 @@ type saver struct {
 	create    func(run uint32) (Writer, error)
 	w         Writer
 	b         pb.FragmentBatch
+	// largest is the largest message read, with room for its headers in
+	// the store.
+	largest int
 }
 
 // take accounts for one stored message and writes it if it belongs to the
 // run.
 func (sv *saver) take(subj string, data []byte) error {
 	res, b := sv.res, &sv.b
+	sv.largest = max(sv.largest, len(data)+len(subj)+64)
 	part, src, ok := parseSubject(subj, sv.prefix)
 	if !ok || proto.Unmarshal(data, b) != nil {
 		res.Undecodable++
@@ -389,6 +517,9 @@ func (sv *saver) take(subj string, data []byte) error {
 	st, known := sv.pairs[pair{part, src}]
 	if !known {
 		st = &pairState{}
+	} else if st.ended {
+		res.AfterEnd++
+		return nil
 	}
 	for _, f := range b.Fragments {
 		sv.crossings[f.Orbit<<12|uint64(f.Bcid)] = struct{}{}
@@ -438,6 +569,22 @@ func parseSubject(subj, prefix string) (int, uint32, bool) {
 		return 0, 0, false
 	}
 	return int(p), uint32(s), true
+}
+
+// full notes whether the stream had reached its size limit: then the
+// server refused whatever came after, which shows as missing batches or
+// ends, and the result says why. A stream is taken as full when less
+// than the largest batch read is left.
+func (sv *saver) full(ctx context.Context, st jetstream.Stream) {
+	cctx, cancel := context.WithTimeout(ctx, 2*time.Second)
+	defer cancel()
+	info, err := st.Info(cctx)
+	if err != nil || info.Config.MaxBytes <= 0 {
+		return
+	}
+	res := sv.res
+	res.StoredBytes, res.MaxBytes = int64(info.State.Bytes), info.Config.MaxBytes
+	res.Full = res.StoredBytes+int64(sv.largest) >= res.MaxBytes
 }
 
 // finish fills in the pairs that never ended and the crossing count.

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"io"
+	"net"
 	"path/filepath"
 	"slices"
 	"strings"
@@ -204,6 +205,38 @@ func TestSaveGivesWhatTheReadoutPublished(t *testing.T) {
 	}
 }
 
+// countingSink counts the batches a sink sends.
+type countingSink struct {
+	emulator.Sink
+	n uint64
+}
+
+func (c *countingSink) Send(partition int, source uint32, firstTs int64, data []byte, fragments int) error {
+	c.n++
+	return c.Sink.Send(partition, source, firstTs, data, fragments)
+}
+
+// awaitStored waits until the stream holds n messages: the server stores
+// a batch after it has received it, so a flushed publish may not be in
+// the store yet.
+func awaitStored(t *testing.T, st jetstream.Stream, n uint64) {
+	t.Helper()
+	deadline := time.Now().Add(10 * time.Second)
+	for {
+		info, err := st.Info(context.Background())
+		if err != nil {
+			t.Fatal(err)
+		}
+		if info.State.Msgs >= n {
+			return
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("the stream holds %d of %d batches after 10 s", info.State.Msgs, n)
+		}
+		time.Sleep(5 * time.Millisecond)
+	}
+}
+
 // What the stream stored survives a server restart: a new server on the
 // same store directory (the recorder was never running during the run)
 // gives the whole run.
@@ -212,10 +245,13 @@ func TestSaveAfterServerRestart(t *testing.T) {
 	srv := jsServer(t, dir)
 	nc, js := connect(t, srv)
 	s := transport.Subjects{}
-	if _, _, err := Open(context.Background(), js, Options{Subjects: s, MaxBytes: 64 << 20}); err != nil {
+	st, _, err := Open(context.Background(), js, Options{Subjects: s, MaxBytes: 64 << 20})
+	if err != nil {
 		t.Fatal(err)
 	}
-	ids := emulate(t, emulator.NewNATSSink(nc, s), 500, 1)
+	sink := &countingSink{Sink: emulator.NewNATSSink(nc, s)}
+	ids := emulate(t, sink, 500, 1)
+	awaitStored(t, st, sink.n)
 	nc.Close()
 	srv.Shutdown()
 	srv.WaitForShutdown()
@@ -303,7 +339,8 @@ func TestSaveNamesWhatIsMissing(t *testing.T) {
 		t.Errorf("%d crossings, want 8", res.Crossings)
 	}
 	p := strings.Join(res.Problems(), "; ")
-	for _, want := range []string{"1 of 3 source/share pairs sent no end-of-run batch (source 3 share 0)", "1 batches missing (source 1 share 0 batch 2)", "1 stored messages were not fragment batches"} {
+	for _, want := range []string{"1 of 3 source/share pairs sent no end-of-run batch (source 3 share 0)", "1 batches missing (source 1 share 0 batch 2)",
+		"1 stored messages were not fragment batches", "1 batches of sources or builder shares the configuration does not have"} {
 		if !strings.Contains(p, want) {
 			t.Errorf("problems %q lack %q", p, want)
 		}
@@ -337,6 +374,9 @@ func TestFullStreamKeepsItsStart(t *testing.T) {
 	if len(w.batches) == 0 {
 		t.Fatal("nothing saved")
 	}
+	if p := strings.Join(res.Problems(), "; "); !res.Full || !strings.Contains(p, "the stream is full") {
+		t.Errorf("full %v, problems %q: the full stream is not named", res.Full, p)
+	}
 	var first pb.FragmentBatch
 	if err := proto.Unmarshal(w.batches[0].Data, &first); err != nil || first.Sequence != 0 {
 		t.Errorf("the first saved batch has sequence %d (%v), want 0: the start was kept", first.Sequence, err)
@@ -347,7 +387,8 @@ func TestFullStreamKeepsItsStart(t *testing.T) {
 }
 
 // Without JetStream on the server, opening says so; a size limit the
-// server's store cannot hold is named with what to change.
+// server's store cannot hold is named with what to change, and without a
+// limit given the stream fits itself to the store.
 func TestOpenWithoutJetStream(t *testing.T) {
 	srv, err := transport.Embedded("127.0.0.1", -1)
 	if err != nil {
@@ -363,5 +404,151 @@ func TestOpenWithoutJetStream(t *testing.T) {
 	_, js2 := connect(t, jsServer(t, t.TempDir()))
 	if _, _, err := Open(ctx, js2, Options{MaxBytes: 1 << 40}); err == nil || !strings.Contains(err.Error(), "--max-mib") {
 		t.Errorf("open with 1 TiB on a 256 MiB store: %v", err)
+	}
+	// Without a limit of its own the stream takes what the store holds.
+	st, _, err := Open(ctx, js2, Options{})
+	if err != nil || st.CachedInfo().Config.MaxBytes != 256<<20 {
+		t.Errorf("open without a limit on a 256 MiB store: %v", err)
+	}
+}
+
+// A second run stored under the same number (a restarted readout) is not
+// merged into the first: its batches come after their pairs' ends, are
+// left out and make the save incomplete, naming the cause.
+func TestSaveKeepsRunsOfOneNumberApart(t *testing.T) {
+	srv := jsServer(t, t.TempDir())
+	nc, js := connect(t, srv)
+	s := transport.Subjects{Prefix: "again"}
+	if _, _, err := Open(context.Background(), js, Options{Subjects: s, MaxBytes: 64 << 20}); err != nil {
+		t.Fatal(err)
+	}
+	for range 2 {
+		for seq := uint64(0); seq < 3; seq++ {
+			publishBatch(t, nc, s, 0, &pb.FragmentBatch{SourceId: 1, Run: 5, Sequence: seq, EndOfRun: seq == 2}, 2)
+		}
+	}
+	res, w := save(t, js, SaveOptions{Subjects: s, Sources: []uint32{1}, Partitions: 1, Idle: 300 * time.Millisecond})
+	if res.Complete() || res.AfterEnd != 3 || len(w.batches) != 3 || res.Duplicates != 0 {
+		t.Errorf("complete %v, %d after the end, %d written, %d duplicates; want incomplete, 3, 3, 0", res.Complete(), res.AfterEnd, len(w.batches), res.Duplicates)
+	}
+	if p := strings.Join(res.Problems(), "; "); !strings.Contains(p, "a second run numbered 5") {
+		t.Errorf("problems %q do not name the second run", p)
+	}
+}
+
+// A save that is waiting for more ends promptly, with a clear error, when
+// its stream is removed, and with the context's error when cancelled;
+// a stream of the name that stores another prefix is refused at once.
+func TestSaveEndsWhenTheStreamGoes(t *testing.T) {
+	srv := jsServer(t, t.TempDir())
+	nc, js := connect(t, srv)
+	s := transport.Subjects{Prefix: "gone"}
+	ctx := context.Background()
+	if _, _, err := Open(ctx, js, Options{Subjects: s, MaxBytes: 64 << 20}); err != nil {
+		t.Fatal(err)
+	}
+	publishBatch(t, nc, s, 0, &pb.FragmentBatch{SourceId: 1, Run: 1}, 2)
+	if err := nc.Flush(); err != nil {
+		t.Fatal(err)
+	}
+	// run starts a save and returns once it has read the stored batch
+	// and waits for more.
+	run := func(ctx context.Context) chan error {
+		done, created := make(chan error, 1), make(chan struct{})
+		go func() {
+			_, err := Save(ctx, js, SaveOptions{Subjects: s, Sources: []uint32{1}, Partitions: 1, Idle: time.Minute,
+				Create: func(uint32) (Writer, error) { close(created); return &memWriter{}, nil }})
+			done <- err
+		}()
+		select {
+		case <-created:
+		case err := <-done:
+			t.Fatalf("save ended before reading: %v", err)
+		}
+		return done
+	}
+	wait := func(done chan error, what string) error {
+		select {
+		case err := <-done:
+			return err
+		case <-time.After(20 * time.Second):
+			t.Fatalf("save did not end within 20 s of %s", what)
+			return nil
+		}
+	}
+
+	cctx, cancel := context.WithCancel(ctx)
+	done := run(cctx)
+	cancel()
+	if err := wait(done, "its cancellation"); !errors.Is(err, context.Canceled) {
+		t.Errorf("cancelled save: %v", err)
+	}
+
+	done = run(ctx)
+	if err := Remove(ctx, js, DefaultName(s)); err != nil {
+		t.Fatal(err)
+	}
+	if err := wait(done, "the stream's removal"); err == nil || !strings.Contains(err.Error(), "was removed while it was being saved") {
+		t.Errorf("save of a removed stream: %v", err)
+	}
+
+	if _, _, err := Open(ctx, js, Options{Name: "elsewhere", Subjects: transport.Subjects{Prefix: "other"}, MaxBytes: 1 << 20}); err != nil {
+		t.Fatal(err)
+	}
+	_, err := Save(ctx, js, SaveOptions{Name: "elsewhere", Subjects: s, Sources: []uint32{1}, Partitions: 1,
+		Create: func(uint32) (Writer, error) { return &memWriter{}, nil }})
+	if err == nil || !strings.Contains(err.Error(), "not the batches of this subject prefix") {
+		t.Errorf("save of a stream of another prefix: %v", err)
+	}
+}
+
+// A server restart during a save (a new server on the same port and
+// store) does not end it: the save reconnects, reads on from where it
+// was, and gets the rest of the run published after the restart.
+func TestSaveCarriesOnThroughAServerRestart(t *testing.T) {
+	dir := t.TempDir()
+	srv := jsServer(t, dir)
+	port := srv.Addr().(*net.TCPAddr).Port
+	nc, js := connect(t, srv)
+	s := transport.Subjects{Prefix: "restart"}
+	if _, _, err := Open(context.Background(), js, Options{Subjects: s, MaxBytes: 64 << 20}); err != nil {
+		t.Fatal(err)
+	}
+	publishBatch(t, nc, s, 0, &pb.FragmentBatch{SourceId: 1, Run: 3, Sequence: 0}, 2)
+	if err := nc.Flush(); err != nil {
+		t.Fatal(err)
+	}
+	type out struct {
+		res Result
+		err error
+	}
+	done, created := make(chan out, 1), make(chan struct{})
+	w := &memWriter{}
+	go func() {
+		res, err := Save(context.Background(), js, SaveOptions{Subjects: s, Sources: []uint32{1}, Partitions: 1, Idle: 20 * time.Second,
+			Create: func(uint32) (Writer, error) { close(created); return w, nil }})
+		done <- out{res, err}
+	}()
+	<-created // the save has read the first batch and waits for more
+	srv.Shutdown()
+	srv.WaitForShutdown()
+	srv2, err := transport.EmbeddedWith(transport.EmbeddedOptions{Port: port, StoreDir: dir, MaxStore: 256 << 20})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { srv2.Shutdown(); srv2.WaitForShutdown() })
+	nc2, err := transport.Connect(srv2.ClientURL(), "after-restart")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer nc2.Close()
+	publishBatch(t, nc2, s, 0, &pb.FragmentBatch{SourceId: 1, Run: 3, Sequence: 1, EndOfRun: true}, 2)
+	select {
+	case o := <-done:
+		if o.err != nil || !o.res.Complete() || o.res.Batches != 2 || len(w.batches) != 2 {
+			t.Errorf("save through a restart: %v, complete %v (%v), %d batches", o.err, o.res.Complete(), o.res.Problems(), o.res.Batches)
+		}
+	case <-time.After(30 * time.Second):
+		t.Fatal("the save did not finish after the server came back")
 	}
 }

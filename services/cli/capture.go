@@ -5,8 +5,11 @@ import (
 	"errors"
 	"flag"
 	"fmt"
+	"os"
+	"os/signal"
 	"slices"
 	"strings"
+	"syscall"
 	"time"
 
 	"github.com/nats-io/nats-server/v2/server"
@@ -66,7 +69,7 @@ func newCaptureFlags(e *env, sub, synopsis, about string, runFlagNames ...string
 	c := &captureFlags{}
 	c.url = fs.String("nats", defaultNATS, "NATS server `URL` (comma-separated for several of one cluster)")
 	c.name = fs.String("name", "", "stream `NAME` (default: the subject prefix, dots as underscores, then _fragments)")
-	someRunFlags(fs, &c.rf, false, append([]string{"config", "subject-prefix"}, runFlagNames...)...)
+	someRunFlags(fs, &c.rf, true, append([]string{"config", "subject-prefix"}, runFlagNames...)...)
 	return fs, c
 }
 
@@ -102,12 +105,12 @@ func captureOpen(ctx context.Context, e *env, args []string) error {
 			"(file storage, so it survives a server restart), or confirm that it exists. Open it before the\n"+
 			"readout starts: batches published before are not stored. A full stream refuses new batches, so\n"+
 			"an overflowing recording shows as missing batches at its end when saved.")
-	maxMiB := fs.Int64("max-mib", capture.DefaultMaxBytes>>20, "largest size of the stored batches in `MiB`")
+	maxMiB := fs.Int64("max-mib", 0, "largest size of the stored batches in `MiB` (default: 8 GiB, or the largest share of that the server's store can hold)")
 	replicas := fs.Int("replicas", 1, "servers of a cluster holding the stream (1..5)")
 	if err := parse(fs, args, 0); err != nil {
 		return err
 	}
-	if *maxMiB < 1 {
+	if *maxMiB < 0 || (setFlags(fs)["max-mib"] && *maxMiB == 0) {
 		return usagef("--max-mib %d: want >= 1", *maxMiB)
 	}
 	if *replicas < 1 || *replicas > 5 {
@@ -140,10 +143,12 @@ func captureSave(ctx context.Context, e *env, args []string) error {
 		"Read the stream from its first batch and write one run into the stream FILE, byte for byte\n"+
 			"as published. It stops when every source has sent its end-of-run batch to every builder share\n"+
 			"and nothing more is stored, or when nothing new arrives for --idle; it may run during the run.\n"+
-			"The file's header takes the detector description, generator settings and sources from the run\n"+
-			"configuration (--config, --sources), which should be the readout's. Exit status 1 when a batch\n"+
-			"is missing or a source never ended (the file is still written, with what was stored).",
-		"sources")
+			"The file's header takes the detector description, generator settings, seed and sources from the\n"+
+			"run configuration (--config, --seed, --sources), which should be the readout's. The file is\n"+
+			"written as FILE.partial and renamed when the save ends; an interrupted save leaves FILE as it was.\n"+
+			"Exit status 1 when a batch is missing, a source never ended, or batches do not fit the\n"+
+			"configuration (the file is still written, with what was stored).",
+		"sources", "seed")
 	out := fs.String("out", "", "stream `FILE` to write")
 	run := fs.Uint("run", 0, "run `NUMBER` to save (default: the run of the first stored batch)")
 	builders := fs.Int("builders", 1, "number of builder shares the readout sent to")
@@ -162,6 +167,9 @@ func captureSave(ctx context.Context, e *env, args []string) error {
 	}
 	if *run > 1<<32-1 {
 		return usagef("--run %d: out of range", *run)
+	}
+	if err := checkWritable(*out); err != nil {
+		return err
 	}
 	cfg, js, closeConn, name, err := c.connect(fs, "bunchsieve-capture-save")
 	if err != nil {
@@ -188,28 +196,53 @@ func captureSave(ctx context.Context, e *env, args []string) error {
 	return nil
 }
 
-// saveRun saves one run of a stream into a stream file at path, created
-// when the run's first batch is read; w is nil if none was.
+// saveRun saves one run of a stream into a stream file at path: written
+// as path.partial, created when the run's first batch is read, and
+// renamed to path when the save has run its course, so that an
+// interrupted or failed save leaves whatever path held before. w is nil
+// if no batch of the run was read.
 func saveRun(ctx context.Context, js jetstream.JetStream, cfg runconfig.Config, o capture.SaveOptions, path string) (capture.Result, *recording.Writer, error) {
 	var w *recording.Writer
+	partial := path + ".partial"
 	o.Create = func(run uint32) (capture.Writer, error) {
 		h, err := streamHeader(cfg, o.Sources, o.Partitions, fmt.Sprintf("bunchsieve %s capture save of stream %s", Version, o.Name))
 		if err != nil {
 			return nil, err
 		}
 		h.Run = run
-		if w, err = recording.Create(path, h); err != nil {
+		if w, err = recording.Create(partial, h); err != nil {
 			return nil, err
 		}
 		return w, nil
 	}
 	res, err := capture.Save(ctx, js, o)
-	if w != nil {
-		if cerr := w.Close(); cerr != nil {
-			err = errors.Join(err, cerr)
-		}
+	if w == nil {
+		return res, nil, err
 	}
-	return res, w, err
+	if cerr := w.Close(); cerr != nil {
+		return res, w, errors.Join(err, cerr)
+	}
+	if err != nil {
+		if ctx.Err() != nil {
+			err = fmt.Errorf("interrupted: the %d batches read so far are in %s; %s is unchanged", res.Batches, partial, path)
+		}
+		return res, w, err
+	}
+	if err := os.Rename(partial, path); err != nil {
+		return res, w, fmt.Errorf("capture: %w", err)
+	}
+	return res, w, nil
+}
+
+// checkWritable fails now, before anything is read or run, if a stream
+// file cannot be written at path (as path.partial, see saveRun).
+func checkWritable(path string) error {
+	f, err := os.Create(path + ".partial")
+	if err != nil {
+		return fmt.Errorf("capture: %w", err)
+	}
+	f.Close()
+	return os.Remove(path + ".partial")
 }
 
 func runWanted(run uint) string {
@@ -305,9 +338,12 @@ func openUpCapture(srv *server.Server, cfg runconfig.Config) (*upCapture, error)
 }
 
 // save writes the run into path. It runs after the chain has drained, so
-// an interrupted run is saved too (its readout ended every source).
+// an interrupted run is saved too (its readout ended every source); an
+// interrupt during the save itself ends it.
 func (u *upCapture) save(e *env, path string) error {
-	res, w, err := saveRun(context.Background(), u.js, u.cfg, capture.SaveOptions{
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	res, w, err := saveRun(ctx, u.js, u.cfg, capture.SaveOptions{
 		Subjects: u.cfg.Subjects(), Sources: u.sources, Partitions: 1, Idle: 2 * time.Second,
 	}, path)
 	printSaved(e, res, path, w != nil)

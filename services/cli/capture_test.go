@@ -33,12 +33,19 @@ func TestCaptureCommands(t *testing.T) {
 	}
 	kept := filepath.Join(dir, "kept.bss")
 	code, out, errs = runCLI(t, time.Minute, "capture", "save", "--nats", url, "--out", kept, "--idle", "2s", "--seed", "11")
-	if code != 2 || !strings.Contains(errs, "-seed") {
-		t.Errorf("capture save --seed: exit %d, %s; want an unknown flag (the seed is the readout's)", code, errs)
-	}
-	code, out, errs = runCLI(t, time.Minute, "capture", "save", "--nats", url, "--out", kept, "--idle", "2s")
 	if code != 0 || !strings.Contains(out, "800 crossings") || !strings.Contains(out, "16 of 16 source/share pairs ended; complete") {
 		t.Fatalf("capture save: exit %d\n%s%s", code, out, errs)
+	}
+	r, err := recording.Open(kept)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if h := r.Header(); h.Seed != 11 || h.Run != 1 {
+		t.Errorf("header: seed %d, run %d; want the readout's 11 and 1", h.Seed, h.Run)
+	}
+	r.Close()
+	if _, err := os.Stat(kept + ".partial"); !os.IsNotExist(err) {
+		t.Errorf("the partial file is left behind: %v", err)
 	}
 	direct := filepath.Join(dir, "direct.bss")
 	if code, out, errs = runCLI(t, time.Minute, "record", "--crossings", "800", "--seed", "11", "--out", direct); code != 0 {
@@ -141,7 +148,7 @@ func TestServeCapture(t *testing.T) {
 		t.Fatalf("no NATS URL in %q", out.String())
 	}
 	url := m[1]
-	if code, stdout, stderr := runCLI(t, time.Minute, "capture", "open", "--nats", url, "--max-mib", "64"); code != 0 {
+	if code, stdout, stderr := runCLI(t, time.Minute, "capture", "open", "--nats", url); code != 0 {
 		t.Fatalf("capture open: exit %d\n%s%s", code, stdout, stderr)
 	}
 	ctl := func(args ...string) (int, string, string) {
@@ -169,6 +176,47 @@ func TestServeCapture(t *testing.T) {
 		want := fmt.Sprintf("capture: run %d from stream bunchsieve_fragments: 500 crossings", run)
 		if code != 0 || !strings.Contains(stdout, want) || !strings.Contains(stdout, "; complete") || !strings.Contains(stdout, "of run "+strconv.Itoa(3-run)+" skipped") {
 			t.Errorf("save run %d: exit %d\n%s%s", run, code, stdout, stderr)
+		}
+	}
+}
+
+// An interrupted save leaves the file it would replace as it was, and
+// what it read in FILE.partial; a path that cannot be written is refused
+// before anything is read or run.
+func TestCaptureSaveInterrupted(t *testing.T) {
+	url := jetStreamServer(t)
+	dir := t.TempDir()
+	if code, out, errs := runCLI(t, time.Minute, "capture", "open", "--nats", url); code != 0 || !strings.Contains(out, "limit 256 MiB") {
+		t.Fatalf("capture open without --max-mib on a 256 MiB store: exit %d\n%s%s", code, out, errs)
+	}
+	good := filepath.Join(dir, "good.bss")
+	if err := os.WriteFile(good, []byte("an earlier recording"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	// Saved as if the readout had sent to two builder shares, the run
+	// never ends: the save waits until the command is interrupted.
+	if code, out, errs := runCLI(t, time.Minute, "readout", "--nats", url, "--crossings", "300"); code != 0 {
+		t.Fatalf("readout: exit %d\n%s%s", code, out, errs)
+	}
+	code, _, errs := runCLI(t, time.Second, "capture", "save", "--nats", url, "--out", good, "--builders", "2", "--idle", "1m")
+	if code != 1 || !strings.Contains(errs, "interrupted: the ") || !strings.Contains(errs, "good.bss is unchanged") {
+		t.Errorf("interrupted save: exit %d, %s", code, errs)
+	}
+	if data, err := os.ReadFile(good); err != nil || string(data) != "an earlier recording" {
+		t.Errorf("the earlier file was changed: %q, %v", data, err)
+	}
+	if _, err := recording.Open(good + ".partial"); err != nil {
+		t.Errorf("the partial file does not read as a stream: %v", err)
+	}
+
+	bad := filepath.Join(dir, "no-such-dir", "x.bss")
+	for _, args := range [][]string{
+		{"capture", "save", "--nats", url, "--out", bad},
+		{"up", "--crossings", "1000000000", "--quiet", "--metrics-addr", "", "--capture", bad},
+	} {
+		code, out, errs := runCLI(t, time.Minute, args...)
+		if code != 1 || !strings.Contains(errs, "no such file or directory") || strings.Contains(out, "crossings") {
+			t.Errorf("%s with an unwritable file: exit %d\n%s%s", args[0], code, out, errs)
 		}
 	}
 }

@@ -57,6 +57,9 @@ func runUp(ctx context.Context, e *env, args []string) error {
 		opts.Status = e.stdout
 	}
 	if *keep != "" {
+		if err := checkWritable(*keep); err != nil {
+			return err
+		}
 		store, err := os.MkdirTemp("", "bunchsieve-capture-")
 		if err != nil {
 			return fmt.Errorf("capture store: %w", err)
