@@ -1,6 +1,7 @@
 package report
 
 import (
+	"compress/flate"
 	"fmt"
 	"math"
 	"strings"
@@ -97,7 +98,12 @@ func branchName(s string) string {
 }
 
 func newTreeWriter(path string, a *accumulator, values []replay.Quantity) (*treeWriter, error) {
-	f, err := riofs.Create(path, riofs.WithLZ4(1))
+	// Compressed with zlib at its fastest: groot's LZ4 path leaves too
+	// little room for a basket that compresses only a little and then
+	// fails to write it (TestTreeOfHardToCompressValues); zlib at level 1
+	// costs about the same time and gives a file about a tenth smaller
+	// (docs/report-format.md).
+	f, err := riofs.Create(path, riofs.WithZlib(flate.BestSpeed))
 	if err != nil {
 		return nil, fmt.Errorf("report: %w", err)
 	}
@@ -138,7 +144,7 @@ func newTreeWriter(path string, a *accumulator, values []replay.Quantity) (*tree
 	// branch fills its baskets at the same pace, so they are compressed
 	// all at once, and at 1 MiB that stalled the replay's deciding
 	// goroutine long enough for the lanes to run out of room.
-	t.w, err = rtree.NewWriter(f, TreeName, vars, rtree.WithTitle("one entry per event: ids, features, per-rule pass (before prescale) and keep (after prescale) bits"), rtree.WithLZ4(1), rtree.WithBasketSize(128<<10))
+	t.w, err = rtree.NewWriter(f, TreeName, vars, rtree.WithTitle("one entry per event: ids, features, per-rule pass (before prescale) and keep (after prescale) bits"), rtree.WithZlib(flate.BestSpeed), rtree.WithBasketSize(128<<10))
 	if err != nil {
 		f.Close()
 		return nil, fmt.Errorf("report: %w", err)
