@@ -293,6 +293,30 @@ func overlapPlot(r *Report) *plot.Plot {
 	return p
 }
 
+// riseX is where an efficiency rises: the fit's 50% point, or else the
+// centre of the first bin at or above half the highest efficiency
+// measured (the range's low end when no bin has events).
+func riseX(ef *Efficiency) float64 {
+	if ef.Fit != nil {
+		return ef.Fit.X50
+	}
+	top := 0.0
+	for _, b := range ef.Bins {
+		if b.Efficiency != nil {
+			top = math.Max(top, *b.Efficiency)
+		}
+	}
+	for _, b := range ef.Bins {
+		if b.Efficiency != nil && top > 0 && *b.Efficiency >= top/2 {
+			return (b.Lo + b.Hi) / 2
+		}
+	}
+	if len(ef.Bins) > 0 {
+		return ef.Bins[0].Lo
+	}
+	return 0
+}
+
 func turnOnPlot(ef *Efficiency, cl float64) *plot.Plot {
 	unit := ""
 	if ef.Unit != "" {
@@ -330,7 +354,14 @@ func turnOnPlot(ef *Efficiency, cl float64) *plot.Plot {
 		curve.Samples = 400
 		p.Add(curve)
 		u := unitSuffix(ef.Unit)
-		p.Legend.Add(fmt.Sprintf("fit: 50%% at %.4g±%.2g%s, width %.3g±%.2g%s, plateau %s", f.X50, f.X50Err, u, f.Sigma, f.SigmaErr, u, plateau), curve)
+		quality := ""
+		if f.PValue != nil {
+			quality = fmt.Sprintf(", p = %.2g", *f.PValue)
+			if *f.PValue < poorFitP {
+				quality += " (POOR FIT)"
+			}
+		}
+		p.Legend.Add(fmt.Sprintf("fit: 50%% at %.4g±%.2g%s, width %.3g±%.2g%s, plateau %s%s", f.X50, f.X50Err, u, f.Sigma, f.SigmaErr, u, plateau, quality), curve)
 		half := plotter.NewFunction(func(float64) float64 { return f.Plateau / 2 })
 		half.LineStyle.Color, half.LineStyle.Dashes = colourGuide, []vg.Length{vg.Points(3), vg.Points(3)}
 		p.Add(half)
@@ -338,8 +369,16 @@ func turnOnPlot(ef *Efficiency, cl float64) *plot.Plot {
 	if len(ef.Bins) > 0 {
 		p.X.Min, p.X.Max = ef.Bins[0].Lo, ef.Bins[len(ef.Bins)-1].Hi
 	}
-	// The top left is below the rise, where the curve leaves room.
-	p.Legend.Top, p.Legend.Left = true, true
-	p.Legend.XOffs, p.Legend.YOffs = vg.Points(8), vg.Points(-6)
+	// The legend goes where a rising efficiency leaves room: below the
+	// plateau on the right when the rise lies in the left half of the
+	// range, above the foot on the left otherwise (always the top left
+	// ran into the plateau of an early rise).
+	if riseX(ef) < (p.X.Min+p.X.Max)/2 {
+		p.Legend.Top, p.Legend.Left = false, false
+		p.Legend.XOffs, p.Legend.YOffs = vg.Points(-8), vg.Points(10)
+	} else {
+		p.Legend.Top, p.Legend.Left = true, true
+		p.Legend.XOffs, p.Legend.YOffs = vg.Points(8), vg.Points(-6)
+	}
 	return p
 }

@@ -54,3 +54,20 @@ func TestOverlapPlotFitsTheImage(t *testing.T) {
 		}
 	}
 }
+
+// The turn-on plot's legend is placed by where the efficiency rises: the
+// fit's 50% point, else the first bin at half the highest efficiency.
+func TestRiseX(t *testing.T) {
+	f := func(v float64) *float64 { return &v }
+	bins := []EffBin{{Lo: 0, Hi: 10, Efficiency: f(0)}, {Lo: 10, Hi: 20}, {Lo: 20, Hi: 30, Efficiency: f(0.3)}, {Lo: 30, Hi: 40, Efficiency: f(0.8)}}
+	// Half of the highest, 0.8, is 0.4: the bin at 0.3 is below it.
+	if got := riseX(&Efficiency{Bins: bins}); got != 35 {
+		t.Errorf("rise without a fit at %v, want 35", got)
+	}
+	if got := riseX(&Efficiency{Bins: bins, Fit: &ErfFit{X50: 31}}); got != 31 {
+		t.Errorf("rise with a fit at %v, want its 50%% point 31", got)
+	}
+	if got := riseX(&Efficiency{Bins: []EffBin{{Lo: 5, Hi: 10}}}); got != 5 {
+		t.Errorf("rise of empty bins at %v, want the range's low end 5", got)
+	}
+}
