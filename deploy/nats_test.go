@@ -250,6 +250,17 @@ func TestNATSClusterForms(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	// A second stream opened without a limit of its own fits itself to
+	// what the members' 256 MiB stores have left beside the first's 64 MiB
+	// (the cluster refuses larger ones as "no suitable peers for
+	// placement", with insufficient storage).
+	other, _, err := capture.Open(ctx, js, capture.Options{Subjects: transport.Subjects{Prefix: "second"}, Replicas: 3})
+	if err != nil {
+		t.Fatalf("open without a limit on the cluster: %v", err)
+	}
+	if got := other.CachedInfo().Config.MaxBytes; got < 64<<20 || got > 192<<20 {
+		t.Errorf("the second stream's limit is %d MiB, want 64 to 192", got>>20)
+	}
 	if info.Cluster == nil || info.Cluster.Name != clusterName || len(info.Cluster.Replicas) != 2 || info.State.Msgs != uint64(batches) {
 		t.Errorf("stream info: cluster %+v, %d messages; want cluster %s with a leader and 2 replicas, %d messages", info.Cluster, info.State.Msgs, clusterName, batches)
 	}

@@ -42,12 +42,20 @@ func openStepCapture(nw *Network, s transport.Subjects, maxBytes int64) (*stepCa
 	}
 	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
 	defer cancel()
-	st, _, err := capture.Open(ctx, js, capture.Options{Subjects: s, MaxBytes: maxBytes})
+	st, created, err := capture.Open(ctx, js, capture.Options{Subjects: s, MaxBytes: maxBytes})
 	if err != nil {
 		nc.Close()
 		return nil, fmt.Errorf("loadtest: %w", err)
 	}
-	return &stepCapture{nc: nc, js: js, st: st, name: st.CachedInfo().Config.Name}, nil
+	name := st.CachedInfo().Config.Name
+	if !created {
+		// Someone else's stream (an earlier test with this prefix on the
+		// same deployment): its batches would count as this step's, and
+		// removing it after the step would lose them.
+		nc.Close()
+		return nil, fmt.Errorf("loadtest: a capture stream %s exists already on the deployment; remove it (bunchsieve capture remove --name %s) or choose another --subject-prefix", name, name)
+	}
+	return &stepCapture{nc: nc, js: js, st: st, name: name}, nil
 }
 
 // stored returns how many batches the stream holds once it holds want,

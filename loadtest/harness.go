@@ -429,6 +429,7 @@ func lossReason(a Accounting) string {
 	add(a.EventBatchesUndecodable, "event batches undecodable")
 	if c := a.Capture; c != nil {
 		add(c.Published-min(c.Stored, c.Published), "fragment batches not stored by the capture")
+		add(c.Stored-min(c.Stored, c.Published), "batches more in the capture than published")
 	}
 	if len(terms) == 0 {
 		return "accounting does not close"

@@ -12,9 +12,12 @@ import (
 	"testing"
 	"time"
 
+	"github.com/nats-io/nats.go/jetstream"
 	"google.golang.org/protobuf/proto"
 
 	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+	"github.com/bunchsieve/bunchsieve/services/capture"
+	"github.com/bunchsieve/bunchsieve/services/transport"
 )
 
 // The harness end to end on an embedded server: a fixed-rate step longer
@@ -366,5 +369,28 @@ func TestCaptureCountsStoredBatches(t *testing.T) {
 	// Nothing is left behind in the store.
 	if n := nw.srvs[0].GlobalAccount().JetStreamUsage().Streams; n != 0 {
 		t.Errorf("%d streams left in the store", n)
+	}
+	// A stream of a step's name that is there already (someone else's) is
+	// neither counted nor removed: the test stops before that step.
+	nc, err := nw.Connect("someone-else")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer nc.Close()
+	js, err := jetstream.New(nc)
+	if err != nil {
+		t.Fatal(err)
+	}
+	theirs, _, err := capture.Open(context.Background(), js, capture.Options{Subjects: transport.Subjects{Prefix: "mine.r1"}, MaxBytes: 1 << 20})
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, err = Run(context.Background(), Config{Dataset: ds, Origin: "test", Network: nw, Workers: 1, Rates: []float64{0},
+		BaselineRuns: -1, Capture: true, SubjectPrefix: "mine", P99Bound: time.Minute})
+	if err == nil || !strings.Contains(err.Error(), "exists already") {
+		t.Errorf("a test onto an existing capture stream: %v", err)
+	}
+	if _, err := theirs.Info(context.Background()); err != nil {
+		t.Errorf("the existing stream was removed: %v", err)
 	}
 }

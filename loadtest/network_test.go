@@ -1,6 +1,7 @@
 package loadtest
 
 import (
+	"fmt"
 	"strings"
 	"testing"
 	"time"
@@ -22,21 +23,27 @@ func TestAwaitInterestAcrossTheCluster(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer nc.Close()
-	if _, err := nc.Subscribe("interest.test.>", func(*nats.Msg) {}); err != nil {
-		t.Fatal(err)
+	// Many subscriptions in one burst, so that the routes are still
+	// carrying them when the local server has confirmed the last.
+	const subs = 500
+	for i := range subs {
+		if _, err := nc.Subscribe(fmt.Sprintf("interest.test.%d", i), func(*nats.Msg) {}); err != nil {
+			t.Fatal(err)
+		}
 	}
 	if err := nc.Flush(); err != nil {
 		t.Fatal(err)
 	}
-	if err := nw.AwaitInterest([]string{"interest.test.a"}, 10*time.Second); err != nil {
+	last := fmt.Sprintf("interest.test.%d", subs-1)
+	if err := nw.AwaitInterest([]string{last}, 10*time.Second); err != nil {
 		t.Fatal(err)
 	}
 	for _, s := range nw.srvs {
-		if !s.GlobalAccount().SubscriptionInterest("interest.test.b") {
-			t.Errorf("server %s has no interest after AwaitInterest returned", s.Name())
+		if !s.GlobalAccount().SubscriptionInterest(last) {
+			t.Errorf("server %s has no interest in %s after AwaitInterest returned", s.Name(), last)
 		}
 	}
-	err = nw.AwaitInterest([]string{"interest.test.a", "nobody.here"}, 50*time.Millisecond)
+	err = nw.AwaitInterest([]string{last, "nobody.here"}, 50*time.Millisecond)
 	if err == nil || !strings.Contains(err.Error(), "nobody.here") {
 		t.Errorf("a subject without subscribers: %v", err)
 	}

@@ -14,6 +14,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"slices"
 	"sort"
 	"strconv"
 	"strings"
@@ -28,9 +29,9 @@ import (
 )
 
 // DefaultMaxBytes caps a stream's stored bytes when the caller sets no
-// limit: about half an hour of the default readout (16 sources at 5,000
-// crossings/s, ~1 kB per crossing, is 5 MB/s), and within the store of
-// the deployment's servers (deploy/nats: max_file_store 20GB).
+// limit: about 45 minutes of the default readout (16 sources at 5,000
+// crossings/s store about 630 B per crossing, 3.2 MB/s), and within the
+// store of the deployment's servers (deploy/nats: max_file_store 20GB).
 const DefaultMaxBytes = 8 << 30
 
 // DefaultName returns the stream name for subjects s: the prefix with its
@@ -52,7 +53,9 @@ func subject(s transport.Subjects) string {
 // Options say which stream to open.
 type Options struct {
 	// Name is the stream's name; empty means DefaultName(Subjects).
-	Name     string
+	Name string
+	// Subjects are the deployment's; the zero value has the default
+	// prefix.
 	Subjects transport.Subjects
 	// MaxBytes caps the stored bytes; zero means DefaultMaxBytes, or the
 	// largest power-of-two share of it that the server's store can
@@ -61,8 +64,8 @@ type Options struct {
 	// recording that overflowed shows as missing batches at its end
 	// instead of silently losing its start.
 	MaxBytes int64
-	// Replicas is the number of servers of a cluster holding the stream
-	// (1 for a single server).
+	// Replicas is the number of servers of a cluster holding the stream;
+	// zero means 1 (a single server).
 	Replicas int
 }
 
@@ -75,7 +78,8 @@ func (o Options) name() string {
 
 // Open creates the stream that stores every fragment batch published
 // under o.Subjects, or finds it if it exists with the same subjects. It
-// reports whether it created the stream.
+// reports whether it created the stream. It is safe for concurrent use
+// (the server decides between two callers creating one stream).
 func Open(ctx context.Context, js jetstream.JetStream, o Options) (jetstream.Stream, bool, error) {
 	name := o.name()
 	want := subject(o.Subjects)
@@ -94,6 +98,8 @@ func Open(ctx context.Context, js jetstream.JetStream, o Options) (jetstream.Str
 	if maxBytes == 0 {
 		maxBytes = DefaultMaxBytes
 	}
+	var tried []int64
+	busy := 0
 	for {
 		st, err = js.CreateStream(ctx, jetstream.StreamConfig{
 			Name:        name,
@@ -108,7 +114,24 @@ func Open(ctx context.Context, js jetstream.JetStream, o Options) (jetstream.Str
 		// Without a limit of the caller's, one the server's store can
 		// reserve is taken: halving down to minDefaultBytes.
 		if o.MaxBytes == 0 && insufficient(err) && maxBytes/2 >= minDefaultBytes {
+			tried = append(tried, maxBytes)
 			maxBytes /= 2
+			continue
+		}
+		if errors.Is(err, jetstream.ErrStreamNameAlreadyInUse) && len(tried) > 0 && busy < 50 {
+			// A cluster refusing an attempt may still hold the name for a
+			// moment, or create the stream after all: one of ours if it
+			// has our subjects and one of the limits tried. Otherwise the
+			// same limit is tried again shortly.
+			if st, ours := existing(ctx, js, name, want, tried); ours {
+				return st, true, nil
+			}
+			busy++
+			select {
+			case <-ctx.Done():
+				return nil, false, describe(name, ctx.Err())
+			case <-time.After(50 * time.Millisecond):
+			}
 			continue
 		}
 		if err != nil {
@@ -118,16 +141,41 @@ func Open(ctx context.Context, js jetstream.JetStream, o Options) (jetstream.Str
 	}
 }
 
+// existing returns the stream name if it stores want with one of the
+// limits in sizes.
+func existing(ctx context.Context, js jetstream.JetStream, name, want string, sizes []int64) (jetstream.Stream, bool) {
+	st, err := js.Stream(ctx, name)
+	if err != nil {
+		return nil, false
+	}
+	c := st.CachedInfo().Config
+	return st, len(c.Subjects) == 1 && c.Subjects[0] == want && slices.Contains(sizes, c.MaxBytes)
+}
+
 // minDefaultBytes is the smallest limit Open tries when the caller set
 // none and the server's store cannot reserve DefaultMaxBytes.
 const minDefaultBytes = 64 << 20
 
+// insufficient says err is the server's refusal of a stream's size
+// limit: a single server reports the lack of storage as such, a cluster
+// as insufficient resources or as no peer for placement with too little
+// storage.
 func insufficient(err error) bool {
 	var apiErr *jetstream.APIError
-	return errors.As(err, &apiErr) && apiErr.ErrorCode == errInsufficientStorage
+	if !errors.As(err, &apiErr) {
+		return false
+	}
+	switch apiErr.ErrorCode {
+	case errInsufficientStorage, errInsufficientResources:
+		return true
+	case errNoPeers:
+		return strings.Contains(apiErr.Description, "insufficient storage")
+	}
+	return false
 }
 
-// Remove deletes the stream name and everything it stored.
+// Remove deletes the stream name and everything it stored. It is safe
+// for concurrent use.
 func Remove(ctx context.Context, js jetstream.JetStream, name string) error {
 	if err := js.DeleteStream(ctx, name); err != nil {
 		return describe(name, err)
@@ -135,9 +183,13 @@ func Remove(ctx context.Context, js jetstream.JetStream, name string) error {
 	return nil
 }
 
-// errInsufficientStorage is the JetStream API's error code for a stream
-// whose limits the server's store cannot reserve.
-const errInsufficientStorage jetstream.ErrorCode = 10047
+// JetStream API error codes for a stream whose size limit the servers
+// cannot reserve, as nats-server numbers them.
+const (
+	errNoPeers               jetstream.ErrorCode = 10005
+	errInsufficientResources jetstream.ErrorCode = 10023
+	errInsufficientStorage   jetstream.ErrorCode = 10047
+)
 
 func describe(name string, err error) error {
 	if insufficient(err) {
@@ -147,7 +199,7 @@ func describe(name string, err error) error {
 		return fmt.Errorf("capture: stream %s: the NATS server has JetStream off (start it with JetStream enabled, e.g. a jetstream block with a store_dir): %w", name, err)
 	}
 	if errors.Is(err, jetstream.ErrStreamNotFound) {
-		return fmt.Errorf("capture: no stream %s on this NATS deployment (open it before the run with bunchsieve capture open)", name)
+		return fmt.Errorf("capture: no stream %s on this NATS deployment (open it before the run with bunchsieve capture open): %w", name, err)
 	}
 	return fmt.Errorf("capture: stream %s: %w", name, err)
 }
@@ -213,13 +265,15 @@ type Result struct {
 	// Gaps are missing batches: sequence numbers skipped before a later
 	// batch of the same pair arrived.
 	Gaps []Gap
-	// Duplicates are batches stored twice (same pair and sequence, as a
-	// publisher resending after a reconnect stores them); they are
-	// written, as the builder counts their fragments as duplicates.
+	// Duplicates are batches stored twice (same pair and sequence, sent
+	// no later than the pair's latest batch); they are written, as the
+	// builder counts their fragments as duplicates.
 	Duplicates uint64
-	// AfterEnd are batches of a pair that had already ended: a second run
-	// stored under the same run number (a restarted readout or run
-	// control). They are not written; the file holds the first run.
+	// AfterEnd are batches of a second run stored under the same run
+	// number (a readout or run control restarted, after a clean end or a
+	// crash): batches of a pair that had ended, or sent after the pair's
+	// latest with a sequence number read already, and everything of the
+	// pair after them. They are not written; the file holds the first run.
 	AfterEnd uint64
 	// Unexpected are batches of a source or share the readout was not
 	// said to have (a configuration other than the readout's); written,
@@ -293,6 +347,12 @@ type pair struct {
 type pairState struct {
 	next  uint64 // the sequence number expected next
 	ended bool
+	// lastSent is the latest publish time of the pair's batches, which
+	// tells a batch stored twice from a restarted readout's.
+	lastSent int64
+	// second is set once batches of a second run under the same number
+	// arrive: everything of the pair after that is left out.
+	second bool
 	// first is the first timestamp of the pair's last batch with
 	// fragments, which a batch without fragments (an end-of-run batch)
 	// is filed under, as the readout writes it into a file.
@@ -308,7 +368,8 @@ const fetchBatch = 512
 // nothing more is stored, or when nothing new arrives for o.Idle, or when
 // ctx ends (returning ctx's error with what was written so far). The
 // result says whether the recording is complete; an incomplete one is not
-// an error, the caller decides.
+// an error, the caller decides. Saves of one stream may run at once, each
+// reading through a consumer of its own.
 func Save(ctx context.Context, js jetstream.JetStream, o SaveOptions) (Result, error) {
 	name := o.Name
 	if name == "" {
@@ -343,7 +404,7 @@ func Save(ctx context.Context, js jetstream.JetStream, o SaveOptions) (Result, e
 	if want := subject(o.Subjects); len(info.Config.Subjects) != 1 || info.Config.Subjects[0] != want {
 		return res, fmt.Errorf("capture: stream %s stores %v, not the batches of this subject prefix (%s)", name, info.Config.Subjects, want)
 	}
-	sv := &saver{res: &res, prefix: prefix, pairs: pairs, crossings: map[uint64]struct{}{}, create: o.Create}
+	sv := &saver{res: &res, prefix: prefix, pairs: pairs, crossings: map[uint64]struct{}{}, create: o.Create, chosen: o.Run != 0}
 	rd := &reader{js: js, stream: name, next: 1}
 	defer rd.close()
 	last := time.Now()
@@ -413,7 +474,7 @@ func (r *reader) fetch(ctx context.Context, wait time.Duration, take func(jetstr
 	}
 	batch, err := r.cons.Fetch(fetchBatch, jetstream.FetchMaxWait(wait))
 	if err != nil {
-		r.cons = nil
+		r.close()
 		return 0, r.failed(ctx, wait)
 	}
 	got := 0
@@ -432,7 +493,7 @@ func (r *reader) fetch(ctx context.Context, wait time.Duration, take func(jetstr
 		}
 	}
 	if err := batch.Error(); err != nil && !errors.Is(err, nats.ErrTimeout) && !errors.Is(err, context.DeadlineExceeded) && !errors.Is(err, jetstream.ErrNoMessages) {
-		r.cons = nil
+		r.close()
 		if got == 0 {
 			return 0, r.failed(ctx, wait)
 		}
@@ -459,15 +520,16 @@ func (r *reader) failed(ctx context.Context, wait time.Duration) error {
 	return nil
 }
 
-// close deletes the reader's consumer (the server would after
-// readerInactive anyway).
+// close deletes the reader's consumer, if any (the server would after
+// readerInactive anyway), so that the next fetch makes a new one.
 func (r *reader) close() {
 	if r.cons == nil {
 		return
 	}
-	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Second)
+	ctx, cancel := context.WithTimeout(context.Background(), time.Second)
 	defer cancel()
 	_ = r.js.DeleteConsumer(ctx, r.stream, r.cons.CachedInfo().Name)
+	r.cons = nil
 }
 
 // fetchWait is how long one fetch waits for messages: short enough that
@@ -485,6 +547,8 @@ type saver struct {
 	create    func(run uint32) (Writer, error)
 	w         Writer
 	b         pb.FragmentBatch
+	// chosen says res.Run is set (from the options or the first batch).
+	chosen bool
 	// largest is the largest message read, with room for its headers in
 	// the store.
 	largest int
@@ -500,8 +564,8 @@ func (sv *saver) take(subj string, data []byte) error {
 		res.Undecodable++
 		return nil
 	}
-	if res.Run == 0 {
-		res.Run = b.Run
+	if !sv.chosen {
+		res.Run, sv.chosen = b.Run, true
 	}
 	if b.Run != res.Run {
 		res.OtherRuns[b.Run]++
@@ -517,14 +581,22 @@ func (sv *saver) take(subj string, data []byte) error {
 	st, known := sv.pairs[pair{part, src}]
 	if !known {
 		st = &pairState{}
-	} else if st.ended {
+	}
+	// A batch whose sequence number was read already is the same batch
+	// stored again if it was sent no later than the pair's latest: a
+	// restarted readout's batches were sent after everything before
+	// them, so they, and anything of a pair that has ended, belong to a
+	// second run under the same number.
+	dup := b.Sequence < st.next && b.SentUnixNs <= st.lastSent
+	if known && !dup && (st.second || st.ended || b.Sequence < st.next) {
+		st.second = true
 		res.AfterEnd++
 		return nil
 	}
 	for _, f := range b.Fragments {
 		sv.crossings[f.Orbit<<12|uint64(f.Bcid)] = struct{}{}
 	}
-	if len(b.Fragments) > 0 {
+	if len(b.Fragments) > 0 && !dup {
 		st.first = b.Fragments[0].TimestampNs
 	}
 	if err := sv.w.WriteBatch(src, part, st.first, data, len(b.Fragments)); err != nil {
@@ -532,22 +604,21 @@ func (sv *saver) take(subj string, data []byte) error {
 	}
 	res.Batches++
 	res.Fragments += uint64(len(b.Fragments))
-	if !known {
-		res.Unexpected++
-		return nil
-	}
 	switch {
-	case b.Sequence < st.next:
+	case !known:
+		res.Unexpected++
+	case dup:
 		res.Duplicates++
-	case b.Sequence > st.next:
-		res.Gaps = append(res.Gaps, Gap{Partition: part, Source: src, From: st.next, To: b.Sequence - 1})
-		fallthrough
 	default:
+		if b.Sequence > st.next {
+			res.Gaps = append(res.Gaps, Gap{Partition: part, Source: src, From: st.next, To: b.Sequence - 1})
+		}
 		st.next = b.Sequence + 1
-	}
-	if b.EndOfRun && !st.ended {
-		st.ended = true
-		res.Ended++
+		st.lastSent = max(st.lastSent, b.SentUnixNs)
+		if b.EndOfRun {
+			st.ended = true
+			res.Ended++
+		}
 	}
 	return nil
 }
@@ -574,7 +645,7 @@ func parseSubject(subj, prefix string) (int, uint32, bool) {
 // full notes whether the stream had reached its size limit: then the
 // server refused whatever came after, which shows as missing batches or
 // ends, and the result says why. A stream is taken as full when less
-// than the largest batch read is left.
+// than twice the largest batch read is left.
 func (sv *saver) full(ctx context.Context, st jetstream.Stream) {
 	cctx, cancel := context.WithTimeout(ctx, 2*time.Second)
 	defer cancel()
@@ -584,7 +655,7 @@ func (sv *saver) full(ctx context.Context, st jetstream.Stream) {
 	}
 	res := sv.res
 	res.StoredBytes, res.MaxBytes = int64(info.State.Bytes), info.Config.MaxBytes
-	res.Full = res.StoredBytes+int64(sv.largest) >= res.MaxBytes
+	res.Full = res.StoredBytes+2*int64(sv.largest) >= res.MaxBytes
 }
 
 // finish fills in the pairs that never ended and the crossing count.

@@ -8,6 +8,7 @@ import (
 	"path/filepath"
 	"slices"
 	"strings"
+	"sync/atomic"
 	"testing"
 	"time"
 
@@ -265,9 +266,14 @@ func TestSaveAfterServerRestart(t *testing.T) {
 	}
 }
 
-// publishBatch publishes a hand-made batch of n fragments.
-func publishBatch(t *testing.T, nc *nats.Conn, s transport.Subjects, part int, b *pb.FragmentBatch, n int) {
+// publishBatch publishes a hand-made batch of n fragments, stamped with
+// a publish time later than any before it (as a readout's are) unless it
+// has one, and returns what it published.
+func publishBatch(t *testing.T, nc *nats.Conn, s transport.Subjects, part int, b *pb.FragmentBatch, n int) []byte {
 	t.Helper()
+	if b.SentUnixNs == 0 {
+		b.SentUnixNs = sentClock.Add(1)
+	}
 	for k := 0; k < n; k++ {
 		b.Fragments = append(b.Fragments, &pb.Fragment{SourceId: b.SourceId, Run: b.Run, Orbit: b.Sequence + 1, Bcid: uint32(k + 1), TimestampNs: int64(k)})
 	}
@@ -278,7 +284,11 @@ func publishBatch(t *testing.T, nc *nats.Conn, s transport.Subjects, part int, b
 	if err := nc.Publish(s.Fragments(part, b.SourceId), data); err != nil {
 		t.Fatal(err)
 	}
+	return data
 }
+
+// sentClock stamps hand-made batches with increasing publish times.
+var sentClock atomic.Int64
 
 // Every way a stored run can fall short is named: a missing batch (a gap
 // in a pair's sequence numbers), a pair that never ended, a batch stored
@@ -299,8 +309,10 @@ func TestSaveNamesWhatIsMissing(t *testing.T) {
 	pub(1, 7, 1, false)
 	pub(1, 7, 3, false) // 2 is missing
 	pub(1, 7, 4, true)
-	pub(2, 7, 0, false)
-	pub(2, 7, 0, false) // stored twice
+	twice := publishBatch(t, nc, s, 0, &pb.FragmentBatch{SourceId: 2, Run: 7}, 2)
+	if err := nc.Publish(s.Fragments(0, 2), twice); err != nil { // stored twice
+		t.Fatal(err)
+	}
 	pub(2, 7, 1, true)
 	pub(3, 7, 0, false) // never ends
 	pub(9, 7, 0, true)  // not one of the readout's sources
@@ -412,9 +424,11 @@ func TestOpenWithoutJetStream(t *testing.T) {
 	}
 }
 
-// A second run stored under the same number (a restarted readout) is not
-// merged into the first: its batches come after their pairs' ends, are
-// left out and make the save incomplete, naming the cause.
+// A second run stored under the same number is not merged into the
+// first, whether the first ended (its batches come after their pairs'
+// ends) or crashed (they go back in sequence, sent later): they are left
+// out and make the save incomplete, naming the cause. A batch stored
+// twice (the same bytes) is a duplicate, an end-of-run batch too.
 func TestSaveKeepsRunsOfOneNumberApart(t *testing.T) {
 	srv := jsServer(t, t.TempDir())
 	nc, js := connect(t, srv)
@@ -433,6 +447,38 @@ func TestSaveKeepsRunsOfOneNumberApart(t *testing.T) {
 	}
 	if p := strings.Join(res.Problems(), "; "); !strings.Contains(p, "a second run numbered 5") {
 		t.Errorf("problems %q do not name the second run", p)
+	}
+
+	// A readout that crashed (no end) and started the run again: its
+	// batches go back in sequence but were sent later.
+	s2 := transport.Subjects{Prefix: "crash"}
+	if _, _, err := Open(context.Background(), js, Options{Subjects: s2, MaxBytes: 64 << 20}); err != nil {
+		t.Fatal(err)
+	}
+	for seq := uint64(0); seq < 3; seq++ {
+		publishBatch(t, nc, s2, 0, &pb.FragmentBatch{SourceId: 1, Run: 5, Sequence: seq}, 2)
+	}
+	for seq := uint64(0); seq < 5; seq++ {
+		publishBatch(t, nc, s2, 0, &pb.FragmentBatch{SourceId: 1, Run: 5, Sequence: seq, EndOfRun: seq == 4}, 2)
+	}
+	res, w = save(t, js, SaveOptions{Subjects: s2, Sources: []uint32{1}, Partitions: 1, Idle: 300 * time.Millisecond})
+	if res.Complete() || res.AfterEnd != 5 || len(w.batches) != 3 || res.Duplicates != 0 {
+		t.Errorf("after a crash: complete %v, %d after the end, %d written, %d duplicates; want incomplete, 5, 3, 0", res.Complete(), res.AfterEnd, len(w.batches), res.Duplicates)
+	}
+
+	// An end-of-run batch stored twice is a duplicate, not a second run.
+	s3 := transport.Subjects{Prefix: "endtwice"}
+	if _, _, err := Open(context.Background(), js, Options{Subjects: s3, MaxBytes: 64 << 20}); err != nil {
+		t.Fatal(err)
+	}
+	publishBatch(t, nc, s3, 0, &pb.FragmentBatch{SourceId: 1, Run: 5}, 2)
+	end := publishBatch(t, nc, s3, 0, &pb.FragmentBatch{SourceId: 1, Run: 5, Sequence: 1, EndOfRun: true}, 2)
+	if err := nc.Publish(s3.Fragments(0, 1), end); err != nil {
+		t.Fatal(err)
+	}
+	res, w = save(t, js, SaveOptions{Subjects: s3, Sources: []uint32{1}, Partitions: 1, Idle: 300 * time.Millisecond})
+	if !res.Complete() || res.Duplicates != 1 || res.AfterEnd != 0 || len(w.batches) != 3 {
+		t.Errorf("end stored twice: complete %v (%v), %d duplicates, %d after the end, %d written", res.Complete(), res.Problems(), res.Duplicates, res.AfterEnd, len(w.batches))
 	}
 }
 
@@ -464,6 +510,8 @@ func TestSaveEndsWhenTheStreamGoes(t *testing.T) {
 		case <-created:
 		case err := <-done:
 			t.Fatalf("save ended before reading: %v", err)
+		case <-time.After(20 * time.Second):
+			t.Fatal("the save read nothing within 20 s")
 		}
 		return done
 	}
@@ -529,7 +577,13 @@ func TestSaveCarriesOnThroughAServerRestart(t *testing.T) {
 			Create: func(uint32) (Writer, error) { close(created); return w, nil }})
 		done <- out{res, err}
 	}()
-	<-created // the save has read the first batch and waits for more
+	select { // the save has read the first batch and waits for more
+	case <-created:
+	case o := <-done:
+		t.Fatalf("the save ended before reading: %v", o.err)
+	case <-time.After(20 * time.Second):
+		t.Fatal("the save read nothing within 20 s")
+	}
 	srv.Shutdown()
 	srv.WaitForShutdown()
 	srv2, err := transport.EmbeddedWith(transport.EmbeddedOptions{Port: port, StoreDir: dir, MaxStore: 256 << 20})

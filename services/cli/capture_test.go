@@ -198,9 +198,10 @@ func TestCaptureSaveInterrupted(t *testing.T) {
 	if code, out, errs := runCLI(t, time.Minute, "readout", "--nats", url, "--crossings", "300"); code != 0 {
 		t.Fatalf("readout: exit %d\n%s%s", code, out, errs)
 	}
-	code, _, errs := runCLI(t, time.Second, "capture", "save", "--nats", url, "--out", good, "--builders", "2", "--idle", "1m")
-	if code != 1 || !strings.Contains(errs, "interrupted: the ") || !strings.Contains(errs, "good.bss is unchanged") {
-		t.Errorf("interrupted save: exit %d, %s", code, errs)
+	code, stdout, errs := runCLI(t, time.Second, "capture", "save", "--nats", url, "--out", good, "--builders", "2", "--idle", "1m")
+	if code != 1 || !strings.Contains(errs, "interrupted: the ") || !strings.Contains(errs, "good.bss is unchanged") ||
+		!strings.Contains(stdout, "to "+good+".partial;") {
+		t.Errorf("interrupted save: exit %d\n%s%s", code, stdout, errs)
 	}
 	if data, err := os.ReadFile(good); err != nil || string(data) != "an earlier recording" {
 		t.Errorf("the earlier file was changed: %q, %v", data, err)

@@ -59,7 +59,9 @@ type TurnOnFit struct {
 	// degrees of freedom: a small value (below 0.01, say) means the
 	// error-function shape does not describe these bins, whatever the
 	// errors of its parameters. Like the chi-square approximation it
-	// rests on, it is rough for bins with few events.
+	// rests on, it is rough for bins with few events: somewhat small
+	// where the rise has few events per bin, large where many bins sit
+	// at 0 or on the plateau (docs/report-format.md gives the figures).
 	PValue float64
 	// Bins is the number of bins with events.
 	Bins int

@@ -116,6 +116,10 @@ func TestFitTurnOnFullPlateau(t *testing.T) {
 	if fit.Plateau > 1 || fit.Plateau < 0.999 {
 		t.Errorf("plateau %v", fit.Plateau)
 	}
+	// With the plateau fixed, two parameters are fitted.
+	if !fit.PlateauFixed || fit.NDF != fit.Bins-2 {
+		t.Errorf("plateau fixed %v: %d degrees of freedom for %d bins, want fixed and bins - 2", fit.PlateauFixed, fit.NDF, fit.Bins)
+	}
 	if math.Abs(fit.X50-x50) > 3*fit.X50Err || math.Abs(fit.Sigma-sigma) > 3*fit.SigmaErr || !(fit.X50Err > 0 && fit.X50Err < 0.5) {
 		t.Errorf("fit %+v", fit)
 	}
@@ -450,6 +454,30 @@ func TestFitTurnOnPValue(t *testing.T) {
 		}
 	}
 	t.Logf("core bins: %d of %d below 0.05, %d above 0.5; all bins: %d below 0.05", low, trials, high, lowAll)
+	// The mean deviance of the core fits is the number of degrees of
+	// freedom, as the chi-square's mean: within 0.5 over 1,000 fits
+	// (standard error sqrt(2 NDF / 1000) = 0.13 for 9), which a count off
+	// by one would miss by 7 standard errors.
+	var sum float64
+	ndf := 0
+	const many = 1000
+	for range many {
+		var core []EffBin
+		for _, b := range syntheticTurnOn(r, 120, 15, 0.95, 200) {
+			if b.X > 95 && b.X < 155 {
+				core = append(core, b)
+			}
+		}
+		f, err := FitTurnOn(core)
+		if err != nil {
+			t.Fatal(err)
+		}
+		sum += f.Deviance
+		ndf = f.NDF
+	}
+	if mean := sum / many; math.Abs(mean-float64(ndf)) > 0.5 {
+		t.Errorf("mean deviance %.2f over %d fits, for %d degrees of freedom", mean, many, ndf)
+	}
 	// The binomial spread of 200 trials: 1.5% at 5%, 3.5% at 50%.
 	if frac := float64(low) / trials; frac < 0.01 || frac > 0.10 {
 		t.Errorf("%.1f%% of fits of the true curve have p < 0.05, want about 5%%", 100*frac)
