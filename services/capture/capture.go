@@ -318,7 +318,7 @@ func (r Result) Problems() []string {
 		out = append(out, fmt.Sprintf("%d stored messages were not fragment batches", r.Undecodable))
 	}
 	if r.AfterEnd > 0 {
-		out = append(out, fmt.Sprintf("%d batches came after their source's end-of-run batch: a second run numbered %d was stored too (the file holds the first; save the other from a stream of its own)", r.AfterEnd, r.Run))
+		out = append(out, fmt.Sprintf("%d batches belong to a second run numbered %d, stored after the first (sent after a source's end-of-run batch, or again from an earlier batch by a restarted readout); the file holds the first run, save the other from a stream of its own", r.AfterEnd, r.Run))
 	}
 	if r.Unexpected > 0 {
 		out = append(out, fmt.Sprintf("%d batches of sources or builder shares the configuration does not have (give --config, --sources and --builders as the readout had them)", r.Unexpected))
