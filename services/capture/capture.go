@@ -16,7 +16,6 @@ import (
 	"fmt"
 	"slices"
 	"sort"
-	"strconv"
 	"strings"
 	"time"
 
@@ -42,12 +41,6 @@ func DefaultName(s transport.Subjects) string {
 		p = transport.DefaultPrefix
 	}
 	return strings.ReplaceAll(p, ".", "_") + "_fragments"
-}
-
-// subject returns the wildcard subject every fragment batch of s is on.
-func subject(s transport.Subjects) string {
-	f := s.Fragments(0, 0)
-	return f[:len(f)-len("0.0")] + ">"
 }
 
 // Options say which stream to open.
@@ -82,7 +75,7 @@ func (o Options) name() string {
 // (the server decides between two callers creating one stream).
 func Open(ctx context.Context, js jetstream.JetStream, o Options) (jetstream.Stream, bool, error) {
 	name := o.name()
-	want := subject(o.Subjects)
+	want := o.Subjects.AllFragments()
 	st, err := js.Stream(ctx, name)
 	if err == nil {
 		info := st.CachedInfo()
@@ -393,18 +386,16 @@ func Save(ctx context.Context, js jetstream.JetStream, o SaveOptions) (Result, e
 		}
 	}
 	res.Expected = len(pairs)
-	prefix := subject(o.Subjects)
-	prefix = prefix[:len(prefix)-1]
 
 	stream, err := js.Stream(ctx, name)
 	if err != nil {
 		return res, describe(name, err)
 	}
 	info := stream.CachedInfo()
-	if want := subject(o.Subjects); len(info.Config.Subjects) != 1 || info.Config.Subjects[0] != want {
+	if want := o.Subjects.AllFragments(); len(info.Config.Subjects) != 1 || info.Config.Subjects[0] != want {
 		return res, fmt.Errorf("capture: stream %s stores %v, not the batches of this subject prefix (%s)", name, info.Config.Subjects, want)
 	}
-	sv := &saver{res: &res, prefix: prefix, pairs: pairs, crossings: map[uint64]struct{}{}, create: o.Create, chosen: o.Run != 0}
+	sv := &saver{res: &res, subjects: o.Subjects, pairs: pairs, crossings: map[uint64]struct{}{}, create: o.Create, chosen: o.Run != 0}
 	rd := &reader{js: js, stream: name, next: 1}
 	defer rd.close()
 	last := time.Now()
@@ -541,7 +532,7 @@ func fetchWait(idle time.Duration) time.Duration {
 // saver is the state of one Save.
 type saver struct {
 	res       *Result
-	prefix    string
+	subjects  transport.Subjects
 	pairs     map[pair]*pairState
 	crossings map[uint64]struct{}
 	create    func(run uint32) (Writer, error)
@@ -559,7 +550,7 @@ type saver struct {
 func (sv *saver) take(subj string, data []byte) error {
 	res, b := sv.res, &sv.b
 	sv.largest = max(sv.largest, len(data)+len(subj)+64)
-	part, src, ok := parseSubject(subj, sv.prefix)
+	part, src, ok := sv.subjects.ParseFragments(subj)
 	if !ok || proto.Unmarshal(data, b) != nil {
 		res.Undecodable++
 		return nil
@@ -621,25 +612,6 @@ func (sv *saver) take(subj string, data []byte) error {
 		}
 	}
 	return nil
-}
-
-// parseSubject reads the builder share and source from a fragment
-// subject, prefix.<partition>.<source>.
-func parseSubject(subj, prefix string) (int, uint32, bool) {
-	rest, ok := strings.CutPrefix(subj, prefix)
-	if !ok {
-		return 0, 0, false
-	}
-	ps, ss, ok := strings.Cut(rest, ".")
-	if !ok {
-		return 0, 0, false
-	}
-	p, err1 := strconv.ParseUint(ps, 10, 16)
-	s, err2 := strconv.ParseUint(ss, 10, 32)
-	if err1 != nil || err2 != nil {
-		return 0, 0, false
-	}
-	return int(p), uint32(s), true
 }
 
 // full notes whether the stream had reached its size limit: then the

@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"regexp"
 	"strconv"
+	"strings"
 )
 
 // DefaultPrefix is the subject prefix when none is configured.
@@ -52,6 +53,30 @@ func (s Subjects) Fragments(partition int, source uint32) string {
 // builder share.
 func (s Subjects) FragmentsOf(partition int) string {
 	return s.prefix() + ".frag." + strconv.Itoa(partition) + ".*"
+}
+
+// AllFragments returns the wildcard subject of every source's batches to
+// every builder share.
+func (s Subjects) AllFragments() string { return s.prefix() + ".frag.>" }
+
+// ParseFragments reads the builder share and source from a fragment
+// subject of s (as Fragments makes them); ok is false for any other
+// subject.
+func (s Subjects) ParseFragments(subject string) (partition int, source uint32, ok bool) {
+	rest, ok := strings.CutPrefix(subject, s.prefix()+".frag.")
+	if !ok {
+		return 0, 0, false
+	}
+	ps, ss, ok := strings.Cut(rest, ".")
+	if !ok {
+		return 0, 0, false
+	}
+	p, err1 := strconv.ParseUint(ps, 10, 16)
+	src, err2 := strconv.ParseUint(ss, 10, 32)
+	if err1 != nil || err2 != nil {
+		return 0, 0, false
+	}
+	return int(p), uint32(src), true
 }
 
 // Built returns the subject of built-event batches.
