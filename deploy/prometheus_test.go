@@ -12,10 +12,10 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
-	"sync"
 	"testing"
 	"time"
 
+	"github.com/bunchsieve/bunchsieve/internal/syncbuf"
 	"github.com/bunchsieve/bunchsieve/services/runconfig"
 	"github.com/bunchsieve/bunchsieve/services/stack"
 	"github.com/bunchsieve/bunchsieve/services/summary"
@@ -153,7 +153,7 @@ func menuRules(t *testing.T, st *stack.Stack) []string {
 
 type prometheus struct {
 	base string
-	log  *syncBuffer
+	log  *syncbuf.Buffer
 }
 
 type sample struct {
@@ -204,7 +204,7 @@ scrape_configs:
 	}
 	addr := ln.Addr().String()
 	ln.Close()
-	p := &prometheus{base: "http://" + addr, log: &syncBuffer{}}
+	p := &prometheus{base: "http://" + addr, log: &syncbuf.Buffer{Limit: 1 << 20}}
 	cmd := exec.Command(bin, "--config.file="+cfgPath, "--storage.tsdb.path="+filepath.Join(dir, "data"),
 		"--web.listen-address="+addr, "--log.level=warn")
 	cmd.Stdout, cmd.Stderr = p.log, p.log
@@ -371,25 +371,4 @@ func (p *prometheus) firingAlerts(t *testing.T) []string {
 		}
 	}
 	return out
-}
-
-// syncBuffer collects a child's output from its writer goroutines.
-type syncBuffer struct {
-	mu sync.Mutex
-	b  strings.Builder
-}
-
-func (s *syncBuffer) Write(p []byte) (int, error) {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	if s.b.Len() > 1<<20 {
-		return len(p), nil
-	}
-	return s.b.Write(p)
-}
-
-func (s *syncBuffer) String() string {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	return s.b.String()
 }

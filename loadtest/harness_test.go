@@ -15,6 +15,7 @@ import (
 	"github.com/nats-io/nats.go/jetstream"
 	"google.golang.org/protobuf/proto"
 
+	"github.com/bunchsieve/bunchsieve/internal/syncbuf"
 	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
 	"github.com/bunchsieve/bunchsieve/services/capture"
 	"github.com/bunchsieve/bunchsieve/services/transport"
@@ -44,7 +45,7 @@ func TestHarnessEndToEnd(t *testing.T) {
 	ds, nw := testRig(t, GenerateConfig{Crossings: 1500, Seed: 1})
 	// The progress lines and the instrumentation hook write into one log,
 	// so that the hook's place among the phases can be checked.
-	log := &lockedLog{}
+	log := &syncbuf.Buffer{}
 	rep, err := Run(context.Background(), Config{
 		Dataset: ds, Origin: "test", Network: nw, Workers: 2, Rates: []float64{3000, 0}, Duration: time.Second,
 		BaselineRuns: 1, BaselineLength: 100 * time.Millisecond, KeepMemory: true, MemoryEvery: 50 * time.Millisecond,
@@ -151,24 +152,6 @@ func TestHarnessEndToEnd(t *testing.T) {
 	if b := img.Bounds(); b.Dx() != 800 || b.Dy() != 900 {
 		t.Fatalf("plot of %v pixels, want 800 x 900", b)
 	}
-}
-
-// lockedLog is a strings.Builder safe for concurrent writes.
-type lockedLog struct {
-	mu sync.Mutex
-	b  strings.Builder
-}
-
-func (l *lockedLog) Write(p []byte) (int, error) {
-	l.mu.Lock()
-	defer l.mu.Unlock()
-	return l.b.Write(p)
-}
-
-func (l *lockedLog) String() string {
-	l.mu.Lock()
-	defer l.mu.Unlock()
-	return l.b.String()
 }
 
 // decisionLog collects the rules each crossing passed before prescale.

@@ -21,7 +21,13 @@ import (
 // which never went through NATS; removing the stream leaves nothing to
 // save.
 func TestCaptureCommands(t *testing.T) {
-	url := jetStreamServer(t)
+	t.Run("embedded", func(t *testing.T) { captureCommands(t, jetStreamServer(t)) })
+	// The installed server program may be of an older version than the
+	// embedded one: the stream and consumer settings must suit it too.
+	t.Run("nats-server program", func(t *testing.T) { captureCommands(t, newProgramServer(t).url) })
+}
+
+func captureCommands(t *testing.T, url string) {
 	dir := t.TempDir()
 
 	code, out, errs := runCLI(t, time.Minute, "capture", "open", "--nats", url, "--max-mib", "64")

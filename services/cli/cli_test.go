@@ -16,6 +16,7 @@ import (
 
 	"github.com/bunchsieve/bunchsieve/services/summary"
 	"github.com/bunchsieve/bunchsieve/services/transport"
+	"github.com/bunchsieve/bunchsieve/services/transport/natsproc"
 )
 
 // runCLI runs the command line in-process with a deadline, so a hang fails
@@ -59,18 +60,19 @@ func TestSeparateServicesMatchUp(t *testing.T) {
 		t.Fatalf("up: exit %d: %s", code, stderr)
 	}
 	up := readSummary(t, upJSON)
-	t.Run("one selection worker", func(t *testing.T) { separateServices(t, up, crossings, seed, 1) })
-	t.Run("two selection workers", func(t *testing.T) { separateServices(t, up, crossings, seed, 2) })
+	t.Run("one selection worker", func(t *testing.T) { separateServices(t, newTestServer(t), up, crossings, seed, 1) })
+	t.Run("two selection workers", func(t *testing.T) { separateServices(t, newTestServer(t), up, crossings, seed, 2) })
+	// The installed server program, of its own version, over TCP to a
+	// process of its own: the services must not depend on the embedded one.
+	t.Run("nats-server program", func(t *testing.T) { separateServices(t, newProgramServer(t), up, crossings, seed, 2) })
 }
 
 // separateServices runs readout, build and workers x select against one
 // server and compares their summaries with up's. With several workers the
 // events and passes add up to up's exactly; each worker prescales its own
 // share, so a rule's kept count may differ by less than one per worker.
-func separateServices(t *testing.T, up summary.Summary, crossings, seed string, workers int) {
+func separateServices(t *testing.T, srv *testServer, up summary.Summary, crossings, seed string, workers int) {
 	dir := t.TempDir()
-
-	srv := newTestServer(t)
 	url := srv.url
 
 	var wg sync.WaitGroup
@@ -204,13 +206,15 @@ func TestHelpAndVersion(t *testing.T) {
 	}
 }
 
-// testServer is an embedded NATS server for one test, shut down at its
-// end, with a way to wait until the services under test have subscribed
-// (core NATS delivers only to subscriptions that exist).
+// testServer is a NATS server for one test, shut down at its end, with a
+// way to wait until the services under test have subscribed (core NATS
+// delivers only to subscriptions that exist): an embedded one, or the
+// nats-server program run as a process of its own.
 type testServer struct {
 	t    *testing.T
-	srv  *server.Server
+	srv  *server.Server // nil for the program
 	url  string
+	subs func() (uint32, error)
 	base uint32
 }
 
@@ -221,7 +225,21 @@ func newTestServer(t *testing.T) *testServer {
 		t.Fatal(err)
 	}
 	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
-	return &testServer{t: t, srv: srv, url: srv.ClientURL(), base: srv.NumSubscriptions()}
+	return &testServer{t: t, srv: srv, url: srv.ClientURL(), subs: func() (uint32, error) { return srv.NumSubscriptions(), nil },
+		base: srv.NumSubscriptions()}
+}
+
+// newProgramServer runs the nats-server program for t (skipping t without
+// it, see natsproc).
+func newProgramServer(t *testing.T) *testServer {
+	t.Helper()
+	p := natsproc.Start(t)
+	t.Logf("%s at %s", p.Version, p.URL)
+	base, err := p.Subscriptions()
+	if err != nil {
+		t.Fatal(err)
+	}
+	return &testServer{t: t, url: p.URL, subs: p.Subscriptions, base: base}
 }
 
 // awaitSubscriptions waits up to 10 s until n subscriptions more than at
@@ -229,9 +247,13 @@ func newTestServer(t *testing.T) *testServer {
 func (s *testServer) awaitSubscriptions(n uint32, who string) {
 	s.t.Helper()
 	deadline := time.Now().Add(10 * time.Second)
-	for s.srv.NumSubscriptions() < s.base+n {
+	for {
+		have, err := s.subs()
+		if err == nil && have >= s.base+n {
+			return
+		}
 		if time.Now().After(deadline) {
-			s.t.Fatalf("%s did not subscribe", who)
+			s.t.Fatalf("%s did not subscribe (%d of %d subscriptions, %v)", who, have-s.base, n, err)
 		}
 		time.Sleep(5 * time.Millisecond)
 	}

@@ -58,6 +58,36 @@ func TestLoadtestCommand(t *testing.T) {
 	}
 }
 
+// The harness against the installed nats-server program over TCP (--nats):
+// the pipeline and both baselines run, and every step's accounting closes.
+// With capture it also stores every batch in that server's JetStream.
+func TestLoadtestOnNATSServerProgram(t *testing.T) {
+	srv := newProgramServer(t)
+	jsonPath := filepath.Join(t.TempDir(), "lt.json")
+	code, _, stderr := runCLI(t, time.Minute, "loadtest", "--nats", srv.url, "--capture", "--dataset", "1200", "--rates", "1k,0",
+		"--duration", "500ms", "--baseline-runs", "1", "--baseline-length", "100ms", "--json", jsonPath)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	data, err := os.ReadFile(jsonPath)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rep loadtest.Report
+	if err := json.Unmarshal(data, &rep); err != nil {
+		t.Fatal(err)
+	}
+	if rep.Transport != "tcp "+srv.url || len(rep.Steps) != 2 || rep.Baseline == nil {
+		t.Fatalf("report: transport %q, %d steps, baseline %v", rep.Transport, len(rep.Steps), rep.Baseline)
+	}
+	for _, st := range rep.Steps {
+		a := st.Account
+		if !a.Lossless() || a.Capture == nil || a.Capture.Stored != a.Capture.Published || a.Capture.Published == 0 {
+			t.Errorf("step at %v/s: %+v, capture %+v", st.OfferedHz, a, a.Capture)
+		}
+	}
+}
+
 // An unwritable profile or trace path is a one-line error, and no report
 // is written.
 func TestLoadtestUnwritableCapture(t *testing.T) {

@@ -1,7 +1,6 @@
 package cli
 
 import (
-	"bytes"
 	"context"
 	"crypto/ecdsa"
 	"crypto/elliptic"
@@ -15,28 +14,11 @@ import (
 	"path/filepath"
 	"regexp"
 	"strings"
-	"sync"
 	"testing"
 	"time"
+
+	"github.com/bunchsieve/bunchsieve/internal/syncbuf"
 )
-
-// lockedBuffer is a bytes.Buffer safe for a writer and a poller at once.
-type lockedBuffer struct {
-	mu sync.Mutex
-	b  bytes.Buffer
-}
-
-func (l *lockedBuffer) Write(p []byte) (int, error) {
-	l.mu.Lock()
-	defer l.mu.Unlock()
-	return l.b.Write(p)
-}
-
-func (l *lockedBuffer) String() string {
-	l.mu.Lock()
-	defer l.mu.Unlock()
-	return l.b.String()
-}
 
 // writeCertificates writes a CA certificate and a server certificate for
 // 127.0.0.1 signed by it (ECDSA P-256, crypto/x509) into dir, and returns
@@ -123,11 +105,11 @@ func TestServeAndCtlOverTLS(t *testing.T) {
 
 // startServe runs `bunchsieve serve args...` until the test ends and
 // returns its run-control address and its standard output so far.
-func startServe(t *testing.T, args ...string) (addr string, out *lockedBuffer) {
+func startServe(t *testing.T, args ...string) (addr string, out *syncbuf.Buffer) {
 	t.Helper()
 	ctx, cancel := context.WithCancel(context.Background())
-	out = &lockedBuffer{}
-	var errb lockedBuffer
+	out = &syncbuf.Buffer{}
+	var errb syncbuf.Buffer
 	done := make(chan int, 1)
 	go func() { done <- run(ctx, append([]string{"serve"}, args...), out, &errb) }()
 	t.Cleanup(func() {

@@ -33,6 +33,8 @@ import (
 	"time"
 
 	"golang.org/x/net/websocket"
+
+	"github.com/bunchsieve/bunchsieve/internal/syncbuf"
 )
 
 // RequireToolsEnv is the environment variable that turns a missing browser
@@ -63,7 +65,7 @@ const origin = "http://127.0.0.1"
 type Browser struct {
 	cmd    *exec.Cmd
 	base   string // http://127.0.0.1:PORT of the DevTools endpoint
-	stderr *lockedBuffer
+	stderr *syncbuf.Buffer
 	done   chan struct{}
 }
 
@@ -96,7 +98,7 @@ func Start(t testing.TB) *Browser {
 	profile := t.TempDir()
 	args := append(append([]string{}, flags...), "--user-data-dir="+profile, "about:blank")
 	cmd := exec.Command(bin, args...)
-	b := &Browser{cmd: cmd, stderr: &lockedBuffer{}, done: make(chan struct{})}
+	b := &Browser{cmd: cmd, stderr: &syncbuf.Buffer{Limit: 1 << 20}, done: make(chan struct{})}
 	cmd.Stdout = b.stderr
 	cmd.Stderr = b.stderr
 	setGroup(cmd)
@@ -504,25 +506,4 @@ func (p *Page) Errors() []string {
 func jsString(s string) string {
 	b, _ := json.Marshal(s)
 	return string(b)
-}
-
-// lockedBuffer collects the browser's output from its writer goroutines.
-type lockedBuffer struct {
-	mu  sync.Mutex
-	buf bytes.Buffer
-}
-
-func (l *lockedBuffer) Write(p []byte) (int, error) {
-	l.mu.Lock()
-	defer l.mu.Unlock()
-	if l.buf.Len() > 1<<20 {
-		return len(p), nil // keep the first MiB; the rest is noise
-	}
-	return l.buf.Write(p)
-}
-
-func (l *lockedBuffer) String() string {
-	l.mu.Lock()
-	defer l.mu.Unlock()
-	return l.buf.String()
 }

@@ -1,0 +1,154 @@
+// Package natsproc runs the nats-server program as a process of its own,
+// for tests that check the services against a server that is not built
+// into them (a user's installed server, over TCP, of another version than
+// the module the embedded default links in).
+//
+// The program is found as $BUNCHSIEVE_NATS_SERVER or nats-server on PATH
+// (Debian package nats-server). Without it Start skips the test, and fails
+// it when BUNCHSIEVE_REQUIRE_TOOLS=1, so that CI cannot pass by skipping.
+package natsproc
+
+import (
+	"encoding/json"
+	"fmt"
+	"net/http"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/bunchsieve/bunchsieve/internal/syncbuf"
+)
+
+// RequireToolsEnv turns a missing program from a skip into a failure.
+const RequireToolsEnv = "BUNCHSIEVE_REQUIRE_TOOLS"
+
+// Server is one nats-server process with JetStream on a store of its own,
+// listening on free loopback ports. Start registers its stop with
+// t.Cleanup. Its methods are safe for concurrent use.
+type Server struct {
+	// URL is the client URL, nats://127.0.0.1:PORT.
+	URL string
+	// Monitor is the monitoring endpoint, http://127.0.0.1:PORT.
+	Monitor string
+	// Version is what the program printed for --version.
+	Version string
+
+	cmd  *exec.Cmd
+	log  *syncbuf.Buffer
+	done chan struct{}
+}
+
+// Binary returns the nats-server program to run, or "" if there is none.
+func Binary() string {
+	if b := os.Getenv("BUNCHSIEVE_NATS_SERVER"); b != "" {
+		return b
+	}
+	if p, err := exec.LookPath("nats-server"); err == nil {
+		return p
+	}
+	return ""
+}
+
+// Start runs a nats-server for t with JetStream enabled, or skips t when
+// the program is not installed. It fails t if the server does not report
+// its ports within 10 s.
+func Start(t testing.TB) *Server {
+	t.Helper()
+	bin := Binary()
+	if bin == "" {
+		msg := "natsproc: no nats-server on PATH (install Debian's nats-server package, or set BUNCHSIEVE_NATS_SERVER)"
+		if os.Getenv(RequireToolsEnv) == "1" {
+			t.Fatal(msg + "; " + RequireToolsEnv + "=1 requires it")
+		}
+		t.Skip(msg)
+	}
+	version, err := exec.Command(bin, "--version").CombinedOutput()
+	if err != nil {
+		t.Fatalf("natsproc: %s --version: %v: %s", bin, err, version)
+	}
+	dir := t.TempDir()
+	// Port -1 lets the server pick free ports; it writes them into the
+	// ports file, so no port is guessed and raced for.
+	cmd := exec.Command(bin, "-a", "127.0.0.1", "-p", "-1", "-m", "-1",
+		"-js", "-sd", filepath.Join(dir, "jetstream"), "--ports_file_dir", dir)
+	s := &Server{Version: strings.TrimSpace(string(version)), cmd: cmd, log: &syncbuf.Buffer{Limit: 1 << 20}, done: make(chan struct{})}
+	cmd.Stdout, cmd.Stderr = s.log, s.log
+	if err := cmd.Start(); err != nil {
+		t.Fatalf("natsproc: start %s: %v", bin, err)
+	}
+	go func() { _ = cmd.Wait(); close(s.done) }()
+	t.Cleanup(s.stop)
+
+	portsFile := filepath.Join(dir, fmt.Sprintf("%s_%d.ports", filepath.Base(bin), cmd.Process.Pid))
+	deadline := time.Now().Add(10 * time.Second)
+	for {
+		var ports struct {
+			Nats       []string `json:"nats"`
+			Monitoring []string `json:"monitoring"`
+		}
+		data, err := os.ReadFile(portsFile)
+		if err == nil && json.Unmarshal(data, &ports) == nil && len(ports.Nats) > 0 && len(ports.Monitoring) > 0 {
+			s.URL, s.Monitor = ports.Nats[0], ports.Monitoring[0]
+			break
+		}
+		select {
+		case <-s.done:
+			t.Fatalf("natsproc: %s exited at start: %s", bin, s.log.String())
+		default:
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("natsproc: %s wrote no ports file %s within 10 s: %s", bin, portsFile, s.log.String())
+		}
+		time.Sleep(10 * time.Millisecond)
+	}
+	// The ports are written before JetStream is up; /healthz answers 200
+	// once the server, JetStream included, is ready for clients.
+	for {
+		resp, err := http.Get(s.Monitor + "/healthz")
+		if err == nil {
+			resp.Body.Close()
+			if resp.StatusCode == http.StatusOK {
+				return s
+			}
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("natsproc: %s not healthy within 10 s (%v): %s", bin, err, s.log.String())
+		}
+		time.Sleep(10 * time.Millisecond)
+	}
+}
+
+// Subscriptions returns the number of subscriptions the server holds, from
+// its /varz monitoring page.
+func (s *Server) Subscriptions() (uint32, error) {
+	resp, err := http.Get(s.Monitor + "/varz")
+	if err != nil {
+		return 0, fmt.Errorf("natsproc: %w", err)
+	}
+	defer resp.Body.Close()
+	var v struct {
+		Subscriptions uint32 `json:"subscriptions"`
+	}
+	if err := json.NewDecoder(resp.Body).Decode(&v); err != nil {
+		return 0, fmt.Errorf("natsproc: /varz: %w", err)
+	}
+	return v.Subscriptions, nil
+}
+
+// Log returns what the server printed so far.
+func (s *Server) Log() string { return s.log.String() }
+
+// stop ends the server: an interrupt, which lets it shut down cleanly,
+// then a kill if it is still there after 5 s.
+func (s *Server) stop() {
+	_ = s.cmd.Process.Signal(os.Interrupt)
+	select {
+	case <-s.done:
+	case <-time.After(5 * time.Second):
+		_ = s.cmd.Process.Kill()
+		<-s.done
+	}
+}
