@@ -57,10 +57,35 @@ type Config struct {
 	// file, and New resumes from it when it holds the same run and share.
 	// Empty means an interruption ends this builder's part of the run.
 	StateFile string
-	Subjects  transport.Subjects
+	// CatchUp, when not nil, is where a builder resuming from StateFile
+	// finds the fragment batches published while no builder ran (the
+	// durable capture stream: capture.Backlog): before it takes any live
+	// batch, Run reads from it every batch of this share stored since
+	// CatchUpMargin before the previous builder stopped, and takes those
+	// that builder had not taken; a batch read there and again live is
+	// taken once. Nil means none: those batches are lost to core NATS.
+	CatchUp Backlog
+	// CatchUpMargin is how far before the previous builder's stop the
+	// catch-up starts reading, for batches published just before it
+	// stopped that had not reached it, and for clocks that differ
+	// between the builder and the NATS server that stamps the stored
+	// batches; zero means 2 s.
+	CatchUpMargin time.Duration
+	Subjects      transport.Subjects
 	// Logger receives rate-limited reports of discarded fragments; nil
 	// means slog.Default().
 	Logger *slog.Logger
+}
+
+// Backlog is a store of the fragment batches published on the NATS
+// deployment, read to catch up after a restart (Config.CatchUp).
+type Backlog interface {
+	// Since hands take every stored batch on subjects matching subject
+	// that the store received at or after since, in the order stored,
+	// up to at least the last batch stored when Since was called, with
+	// the subject it was published on. It stops at take's first error
+	// and returns it; data is not reused after take returns.
+	Since(ctx context.Context, subject string, since time.Time, take func(subject string, data []byte) error) error
 }
 
 // maxBatchBytes keeps an event batch well under the NATS payload limit.
@@ -104,6 +129,19 @@ type Assembler struct {
 	sourceIndex map[uint32]int
 
 	resumed bool
+	// With StateFile: the highest batch sequence number taken from each
+	// source (builderState.LastBatch), and when the builder stopped
+	// taking batches (set by Run).
+	lastBatch map[uint32]uint64
+	stoppedNs int64
+	// dedupe is set while batches may come twice, from the catch-up and
+	// live: a batch at or below lastBatch of its source is passed over
+	// and counted in repeated.
+	dedupe     bool
+	resumeFrom *builderState
+	caughtUp   uint64
+	repeated   uint64
+
 	done    chan struct{}
 	ready   chan struct{}
 	dropped atomic.Uint64
@@ -176,8 +214,15 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Assembler, erro
 					cfg.StateFile, st.Run, st.Instance, st.Instances, cfg.Builder.Run, cfg.Instance, cfg.Instances)
 			}
 			a.b.Resume(st.ClosedNs)
-			a.seq, a.emitted, a.resumed = st.Seq, st.Emitted, true
+			a.seq, a.emitted, a.resumed, a.resumeFrom = st.Seq, st.Emitted, true, st
+			a.lastBatch = st.LastBatch
 		}
+		if a.lastBatch == nil {
+			a.lastBatch = make(map[uint32]uint64, len(cfg.Builder.Sources))
+		}
+	}
+	if cfg.CatchUpMargin == 0 {
+		a.cfg.CatchUpMargin = 2 * time.Second
 	}
 	return a, nil
 }
@@ -197,9 +242,11 @@ func (a *Assembler) Resumed() bool { return a.resumed }
 // the batch sequence and the events emitted are written to the state file
 // for the builder that takes over (New). Every crossing is then emitted
 // once by the two together; fragments for crossings the first one emitted
-// count as late in the second, and fragments published while neither runs
-// are lost to core NATS (the readout's own counts show how many). At the
-// end of the run the state file is removed.
+// count as late in the second. Fragment batches published while neither
+// runs are lost to core NATS (the readout's own counts show how many),
+// unless Config.CatchUp gives the second builder a capture stream to read
+// them from. Batches queued for this builder when it unsubscribes are
+// taken, not dropped. At the end of the run the state file is removed.
 //
 // Fragment batches are taken on Run's own goroutine from a queue of
 // transport.PendingMsgs messages, whatever has queued up (at most
@@ -220,6 +267,9 @@ func (a *Assembler) Run(ctx context.Context) error {
 	}
 	close(a.ready)
 	defer sub.Unsubscribe()
+	if a.resumeFrom != nil && a.cfg.CatchUp != nil && a.resumeFrom.StoppedUnixNs > 0 {
+		a.catchUp(ctx)
+	}
 	tick := time.NewTicker(a.cfg.Tick)
 	defer tick.Stop()
 	finished, interrupted := false, false
@@ -249,6 +299,19 @@ func (a *Assembler) Run(ctx context.Context) error {
 	// Dropped fails once the subscription is closed: count first.
 	a.noteDrops(sub)
 	_ = sub.Unsubscribe()
+	if a.lastBatch != nil {
+		a.stoppedNs = time.Now().UnixNano()
+	}
+	// What had queued up when the subscription closed is taken too, not
+	// dropped with it.
+	for drained := false; !drained; {
+		select {
+		case msg := <-in:
+			a.takeLocked(msg, time.Now().UnixNano())
+		default:
+			drained = true
+		}
+	}
 	a.b.Flush()
 	// The flush emptied the window: every refused fragment now goes in or
 	// is counted (late, as a rule), so none is lost from the accounting.
@@ -265,7 +328,7 @@ func (a *Assembler) Run(ctx context.Context) error {
 			return fmt.Errorf("assembler: flush: %w", err)
 		}
 		st := builderState{Run: a.cfg.Builder.Run, Instance: a.cfg.Instance, Instances: a.cfg.Instances,
-			ClosedNs: a.b.Stats().ClosedNs, Seq: a.seq, Emitted: a.emitted}
+			ClosedNs: a.b.Stats().ClosedNs, Seq: a.seq, Emitted: a.emitted, StoppedUnixNs: a.stoppedNs, LastBatch: a.lastBatch}
 		return errors.Join(a.pubErr, writeState(a.cfg.StateFile, st))
 	}
 	if err := a.publishLocked(true); err != nil {
@@ -281,6 +344,56 @@ func (a *Assembler) Run(ctx context.Context) error {
 		}
 	}
 	return a.pubErr
+}
+
+// catchUp takes the batches of this share that Config.CatchUp stored from
+// CatchUpMargin before the previous builder stopped, passing over those
+// that builder had taken; live batches wait in the subscription's queue
+// meanwhile, and those read here already are passed over in turn. A
+// failure is logged and the builder goes on with the live batches: what
+// the catch-up could not read is lost, as it would be without one.
+func (a *Assembler) catchUp(ctx context.Context) {
+	since := time.Unix(0, a.resumeFrom.StoppedUnixNs).Add(-a.cfg.CatchUpMargin)
+	a.mu.Lock()
+	a.dedupe = true
+	a.mu.Unlock()
+	n := 0
+	err := a.cfg.CatchUp.Since(ctx, a.cfg.Subjects.FragmentsOf(a.cfg.Instance), since, func(subject string, data []byte) error {
+		a.mu.Lock()
+		defer a.mu.Unlock()
+		repeated := a.repeated
+		a.takeLocked(&nats.Msg{Subject: subject, Data: data}, time.Now().UnixNano())
+		if a.repeated == repeated {
+			a.caughtUp++
+			a.m.caughtUp.Inc()
+		}
+		if n++; n%burstMsgs == 0 {
+			if err := a.publishLocked(false); err != nil && a.pubErr == nil {
+				a.pubErr = err
+			}
+		}
+		return nil
+	})
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if perr := a.publishLocked(false); perr != nil && a.pubErr == nil {
+		a.pubErr = perr
+	}
+	if err != nil && ctx.Err() == nil {
+		a.log.Error("catch-up from the capture stream failed; batches published while no builder ran may be lost",
+			"instance", a.cfg.Instance, "error", err, "taken", a.caughtUp)
+		return
+	}
+	a.log.Info("caught up from the capture stream", "instance", a.cfg.Instance, "taken", a.caughtUp, "passed_over", a.repeated)
+}
+
+// CatchUpStats returns how many fragment batches a resumed builder took
+// from the capture stream (Config.CatchUp) and how many it passed over
+// as taken already. It is safe for concurrent use.
+func (a *Assembler) CatchUpStats() (caughtUp, repeated uint64) {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return a.caughtUp, a.repeated
 }
 
 // Ready is closed once Run has subscribed and the server has confirmed
@@ -349,6 +462,20 @@ func (a *Assembler) takeLocked(msg *nats.Msg, arrival int64) {
 		return
 	}
 	if i, ok := a.sourceIndex[batch.sourceID]; ok {
+		if a.lastBatch != nil {
+			last, seen := a.lastBatch[batch.sourceID]
+			if a.dedupe && seen && batch.sequence <= last {
+				// Taken already, from the catch-up or by the builder
+				// before: not offered twice.
+				batch.fail(a.pool)
+				a.repeated++
+				a.m.repeated.Inc()
+				return
+			}
+			if !seen || batch.sequence > last {
+				a.lastBatch[batch.sourceID] = batch.sequence
+			}
+		}
 		a.bytesIn[i] += uint64(len(msg.Data))
 	}
 	for _, h := range batch.frags {

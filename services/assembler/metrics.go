@@ -13,6 +13,8 @@ type metrics struct {
 	batches     prometheus.Counter
 	dropped     prometheus.Counter
 	undecodable prometheus.Counter
+	caughtUp    prometheus.Counter
+	repeated    prometheus.Counter
 }
 
 // Latency buckets from 10 us to 10 s; the native histogram gives the fine
@@ -38,8 +40,12 @@ func newMetrics(reg prometheus.Registerer, a *Assembler) (*metrics, error) {
 			Help: "Fragment batches the NATS client dropped because the builder fell behind (slow consumer)."}),
 		undecodable: prometheus.NewCounter(prometheus.CounterOpts{Name: "bunchsieve_builder_batches_undecodable_total", ConstLabels: inst,
 			Help: "Fragment batches that could not be decoded."}),
+		caughtUp: prometheus.NewCounter(prometheus.CounterOpts{Name: "bunchsieve_builder_caught_up_batches_total", ConstLabels: inst,
+			Help: "Fragment batches a restarted builder took from the capture stream: published while no builder ran."}),
+		repeated: prometheus.NewCounter(prometheus.CounterOpts{Name: "bunchsieve_builder_repeated_batches_total", ConstLabels: inst,
+			Help: "Fragment batches a restarted builder passed over because it, or the builder before it, had taken them already (read from the capture stream and again live)."}),
 	}
-	for _, c := range []prometheus.Collector{m.latency, m.sinceSent, m.batches, m.dropped, m.undecodable, &accounting{a: a, inst: inst}} {
+	for _, c := range []prometheus.Collector{m.latency, m.sinceSent, m.batches, m.dropped, m.undecodable, m.caughtUp, m.repeated, &accounting{a: a, inst: inst}} {
 		if err := reg.Register(c); err != nil {
 			return nil, fmt.Errorf("assembler: register metrics: %w", err)
 		}

@@ -7,6 +7,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 	"github.com/prometheus/client_golang/prometheus"
 
@@ -14,87 +15,89 @@ import (
 	"github.com/bunchsieve/bunchsieve/services/transport"
 )
 
-// A builder stopped in the middle of a run, with a crossing half sent, and
-// a new one started on its state file build every crossing exactly once
-// between them, and announce the end of the run once, with every event.
-func TestRestartMidRunBuildsEachCrossingOnce(t *testing.T) {
-	const crossings = 40
-	stream, sources := oneCrossingBatches(t, crossings)
-	srv, err := transport.Embedded("127.0.0.1", -1)
+// restartRig holds what the tests of a builder stopped and started again
+// within a run share: one-crossing batches of 16 sources, a server, a
+// watcher of the built events, a readout connection and a state file.
+type restartRig struct {
+	t        *testing.T
+	srv      *server.Server
+	subjects transport.Subjects
+	stream   *sourced
+	sources  []uint32
+	log      *builtWatcher
+	pub      *nats.Conn
+	state    string
+}
+
+func newRestartRig(t *testing.T, srv *server.Server, prefix string, crossings uint64) *restartRig {
+	t.Helper()
+	r := &restartRig{t: t, srv: srv, subjects: transport.Subjects{Prefix: prefix}, state: filepath.Join(t.TempDir(), "builder.state")}
+	r.stream, r.sources = oneCrossingBatches(t, crossings)
+	r.log = watchBuilt(t, r.conn("watch"), r.subjects)
+	r.pub = r.conn("readout")
+	return r
+}
+
+func (r *restartRig) conn(name string) *nats.Conn {
+	r.t.Helper()
+	nc, err := transport.ConnectInProcess(r.srv, name)
 	if err != nil {
-		t.Fatal(err)
+		r.t.Fatal(err)
 	}
-	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
-	conn := func(name string) *nats.Conn {
-		nc, err := transport.ConnectInProcess(srv, name)
-		if err != nil {
-			t.Fatal(err)
-		}
-		t.Cleanup(nc.Close)
-		return nc
-	}
-	subjects := transport.Subjects{Prefix: "restart"}
-	log := watchBuilt(t, conn("watch"), subjects)
-	pub := conn("readout")
-	state := filepath.Join(t.TempDir(), "builder.state")
-	start := func() (*Assembler, context.CancelFunc, chan error) {
-		a, err := New(Config{Builder: builder.Config{Run: 1, Sources: sources}, Subjects: subjects, StateFile: state}, conn("builder"), prometheus.NewRegistry())
-		if err != nil {
-			t.Fatal(err)
-		}
-		ctx, cancel := context.WithCancel(context.Background())
-		done := make(chan error, 1)
-		go func() { done <- a.Run(ctx) }()
-		<-a.Ready()
-		return a, cancel, done
-	}
-	send := func(from, to int) {
-		for i := from; i < to; i++ {
-			if err := pub.Publish(subjects.Fragments(0, stream.sources[i]), stream.batches[i]); err != nil {
-				t.Fatal(err)
-			}
-		}
-		if err := pub.Flush(); err != nil {
-			t.Fatal(err)
-		}
-	}
-	waitFor := func(what string, cond func() bool) {
-		t.Helper()
-		deadline := time.Now().Add(10 * time.Second)
-		for !cond() {
-			if time.Now().After(deadline) {
-				t.Fatalf("timed out waiting for %s", what)
-			}
-			time.Sleep(time.Millisecond)
-		}
-	}
+	r.t.Cleanup(nc.Close)
+	return nc
+}
 
-	cut := 20*16 + 8 // crossing 20 half sent
-	first, stop, done := start()
-	if first.Resumed() {
-		t.Fatal("the first builder resumed from a state file that should not exist")
+// send publishes batches from up to to of the stream.
+func (r *restartRig) send(from, to int) {
+	r.t.Helper()
+	for i := from; i < to; i++ {
+		if err := r.pub.Publish(r.subjects.Fragments(0, r.stream.sources[i]), r.stream.batches[i]); err != nil {
+			r.t.Fatal(err)
+		}
 	}
-	send(0, cut)
-	waitFor("the first builder's fragments", func() bool { return first.Stats().Received == uint64(cut) })
-	stop()
-	if err := <-done; err != nil {
-		t.Fatal(err)
+	if err := r.pub.Flush(); err != nil {
+		r.t.Fatal(err)
 	}
-	if _, err := os.Stat(state); err != nil {
-		t.Fatalf("no state file after the interruption: %v", err)
-	}
-	firstStats := first.Stats()
+}
 
-	second, _, done2 := start()
-	if !second.Resumed() {
-		t.Fatal("the second builder did not resume")
+// start runs a builder on the rig's state file, catching up from catchUp
+// when it is not nil, and returns it once it listens.
+func (r *restartRig) start(catchUp Backlog) (*Assembler, context.CancelFunc, chan error) {
+	r.t.Helper()
+	a, err := New(Config{Builder: builder.Config{Run: 1, Sources: r.sources}, Subjects: r.subjects, StateFile: r.state, CatchUp: catchUp},
+		r.conn("builder"), prometheus.NewRegistry())
+	if err != nil {
+		r.t.Fatal(err)
 	}
-	send(cut, len(stream.batches))
-	if err := <-done2; err != nil {
-		t.Fatal(err)
-	}
-	waitFor("the end of the run", func() bool { log.mu.Lock(); defer log.mu.Unlock(); return len(log.ends) > 0 })
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- a.Run(ctx) }()
+	<-a.Ready()
+	return a, cancel, done
+}
 
+// waitFor polls cond for up to 10 s.
+func waitFor(t *testing.T, what string, cond func() bool) {
+	t.Helper()
+	deadline := time.Now().Add(10 * time.Second)
+	for !cond() {
+		if time.Now().After(deadline) {
+			t.Fatalf("timed out waiting for %s", what)
+		}
+		time.Sleep(time.Millisecond)
+	}
+}
+
+// checkOnceEach checks, once the second builder has ended the run, that
+// the two built every crossing exactly once, announced the end once with
+// every event, received every fragment once between them (the rest of
+// the half-sent crossing 20 late for the second), and removed the state.
+func (r *restartRig) checkOnceEach(first builder.Stats, second *Assembler, crossings int) {
+	t := r.t
+	t.Helper()
+	log := r.log
+	waitFor(t, "the end of the run", func() bool { log.mu.Lock(); defer log.mu.Unlock(); return len(log.ends) > 0 })
 	log.mu.Lock()
 	defer log.mu.Unlock()
 	if len(log.counts) != crossings {
@@ -105,21 +108,58 @@ func TestRestartMidRunBuildsEachCrossingOnce(t *testing.T) {
 			t.Errorf("crossing at slot %d built %d times", k, n)
 		}
 	}
-	if len(log.ends) != 1 || log.ends[0] != crossings {
+	if len(log.ends) != 1 || log.ends[0] != uint64(crossings) {
 		t.Errorf("end-of-run batches announcing %v events, want one announcing %d", log.ends, crossings)
 	}
-	// Between them the two accounted for every fragment: the second half
-	// of crossing 20 is late for the second builder.
 	s := second.Stats()
-	if got := firstStats.Received + s.Received; got != uint64(crossings*len(sources)) {
-		t.Errorf("fragments received %d + %d, want %d", firstStats.Received, s.Received, crossings*len(sources))
+	if got := first.Received + s.Received; got != uint64(crossings*len(r.sources)) {
+		t.Errorf("fragments received %d + %d, want %d: some lost or taken twice", first.Received, s.Received, crossings*len(r.sources))
 	}
-	if s.Late != 8 || !s.Balanced() || !firstStats.Balanced() {
+	if s.Late != 8 || !s.Balanced() || !first.Balanced() {
 		t.Errorf("second builder %+v: want the 8 fragments of crossing 20 it did not start late", s)
 	}
-	if _, err := os.Stat(state); !os.IsNotExist(err) {
+	if _, err := os.Stat(r.state); !os.IsNotExist(err) {
 		t.Errorf("state file left after the end of the run: %v", err)
 	}
+}
+
+// A builder stopped in the middle of a run, with a crossing half sent, and
+// a new one started on its state file build every crossing exactly once
+// between them, and announce the end of the run once, with every event.
+func TestRestartMidRunBuildsEachCrossingOnce(t *testing.T) {
+	const crossings = 40
+	srv, err := transport.Embedded("127.0.0.1", -1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
+	r := newRestartRig(t, srv, "restart", crossings)
+
+	cut := 20*16 + 8 // crossing 20 half sent
+	first, stop, done := r.start(nil)
+	if first.Resumed() {
+		t.Fatal("the first builder resumed from a state file that should not exist")
+	}
+	r.send(0, cut)
+	waitFor(t, "the first builder's fragments", func() bool { return first.Stats().Received == uint64(cut) })
+	stop()
+	if err := <-done; err != nil {
+		t.Fatal(err)
+	}
+	if _, err := os.Stat(r.state); err != nil {
+		t.Fatalf("no state file after the interruption: %v", err)
+	}
+	firstStats := first.Stats()
+
+	second, _, done2 := r.start(nil)
+	if !second.Resumed() {
+		t.Fatal("the second builder did not resume")
+	}
+	r.send(cut, len(r.stream.batches))
+	if err := <-done2; err != nil {
+		t.Fatal(err)
+	}
+	r.checkOnceEach(firstStats, second, crossings)
 }
 
 // A state file of another run or share is refused, not taken up.

@@ -21,6 +21,15 @@ type builderState struct {
 	Seq uint64 `json:"next_batch_seq"`
 	// Emitted counts the events of the share emitted so far.
 	Emitted uint64 `json:"events_emitted"`
+	// StoppedUnixNs is when the builder stopped taking fragment batches
+	// (wall clock); the one taking over reads the capture stream from a
+	// little before it (Config.CatchUp). Zero in files written before it
+	// was kept: no catch-up then.
+	StoppedUnixNs int64 `json:"stopped_unix_ns,omitempty"`
+	// LastBatch is the highest batch sequence number taken from each
+	// source, so that a batch read from the capture stream and again
+	// live is taken once.
+	LastBatch map[uint32]uint64 `json:"last_batch_by_source,omitempty"`
 }
 
 // readState reads a state file; nil, nil when there is none.

@@ -75,6 +75,7 @@ type heldFragment struct {
 // wireBatch is one decoded FragmentBatch.
 type wireBatch struct {
 	sourceID   uint32
+	sequence   uint64
 	sentUnixNs int64
 	endOfRun   bool
 	frags      []*heldFragment
@@ -151,6 +152,8 @@ func decodeBatch(data []byte, wb *wireBatch, p *fragmentPool) error {
 			switch num {
 			case batchSourceID:
 				wb.sourceID = uint32(v)
+			case batchSequence:
+				wb.sequence = v
 			case batchSent:
 				wb.sentUnixNs = int64(v)
 			case batchEnd:

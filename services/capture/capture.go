@@ -438,7 +438,12 @@ func Save(ctx context.Context, js jetstream.JetStream, o SaveOptions) (Result, e
 type reader struct {
 	js     jetstream.JetStream
 	stream string
-	next   uint64
+	// next is the next sequence number to read; zero means the first
+	// message stored at or after since.
+	next  uint64
+	since time.Time
+	// filter, if not empty, limits the reading to subjects matching it.
+	filter string
 	cons   jetstream.Consumer
 }
 
@@ -453,10 +458,15 @@ const readerInactive = 30 * time.Second
 func (r *reader) fetch(ctx context.Context, wait time.Duration, take func(jetstream.Msg, *jetstream.MsgMetadata) error) (int, error) {
 	if r.cons == nil {
 		cctx, cancel := context.WithTimeout(ctx, 5*time.Second)
-		cons, err := r.js.CreateConsumer(cctx, r.stream, jetstream.ConsumerConfig{
-			DeliverPolicy: jetstream.DeliverByStartSequencePolicy, OptStartSeq: r.next,
+		cc := jetstream.ConsumerConfig{
+			DeliverPolicy: jetstream.DeliverByStartSequencePolicy, OptStartSeq: r.next, FilterSubject: r.filter,
 			AckPolicy: jetstream.AckNonePolicy, InactiveThreshold: readerInactive, MemoryStorage: true,
-		})
+		}
+		if r.next == 0 {
+			since := r.since
+			cc.DeliverPolicy, cc.OptStartSeq, cc.OptStartTime = jetstream.DeliverByStartTimePolicy, 0, &since
+		}
+		cons, err := r.js.CreateConsumer(cctx, r.stream, cc)
 		cancel()
 		if err != nil {
 			return 0, r.failed(ctx, wait)

@@ -161,6 +161,9 @@ func TestBadInputGivesOneLineError(t *testing.T) {
 	if err := os.WriteFile(garbage, []byte("rules: [unclosed\n"), 0o644); err != nil {
 		t.Fatal(err)
 	}
+	// A server with JetStream but no capture stream to catch up from.
+	js := newJetStreamTestServer(t).url
+	state := filepath.Join(dir, "build.state")
 	cases := []struct {
 		args []string
 		want string
@@ -182,6 +185,10 @@ func TestBadInputGivesOneLineError(t *testing.T) {
 		{[]string{"select", "--nats", "nats://127.0.0.1:1"}, "127.0.0.1:1"},
 		{[]string{"readout", "--nats", "nats://127.0.0.1:1", "--crossings", "10"}, "127.0.0.1:1"},
 		{[]string{"build", "--instance", "2", "--builders", "2"}, "--instance"},
+		{[]string{"build", "--catch-up"}, "--catch-up needs --state"},
+		{[]string{"build", "--state", state, "--catch-up-stream", "x"}, "--catch-up-stream without --catch-up"},
+		{[]string{"build", "--nats", js, "--state", state, "--catch-up"}, "no stream bunchsieve_fragments"},
+		{[]string{"build", "--nats", newTestServer(t).url, "--state", state, "--catch-up"}, "JetStream off"},
 		{[]string{"select", "--worker", "2", "--workers", "2"}, "--worker"},
 		{[]string{"select", "--workers", "0"}, "--worker"},
 		{[]string{"menu"}, "menu check"},
@@ -221,6 +228,19 @@ type testServer struct {
 func newTestServer(t *testing.T) *testServer {
 	t.Helper()
 	srv, err := transport.Embedded("127.0.0.1", -1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
+	return &testServer{t: t, srv: srv, url: srv.ClientURL(), subs: func() (uint32, error) { return srv.NumSubscriptions(), nil },
+		base: srv.NumSubscriptions()}
+}
+
+// newJetStreamTestServer is newTestServer with JetStream on a store of
+// the test's own.
+func newJetStreamTestServer(t *testing.T) *testServer {
+	t.Helper()
+	srv, err := transport.EmbeddedWith(transport.EmbeddedOptions{Port: -1, StoreDir: t.TempDir(), MaxStore: 256 << 20})
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -1,6 +1,7 @@
 package cli
 
 import (
+	"context"
 	"net"
 	"path/filepath"
 	"strings"
@@ -8,21 +9,63 @@ import (
 	"testing"
 	"time"
 
+	"github.com/nats-io/nats.go/jetstream"
+
 	"github.com/bunchsieve/bunchsieve/services/transport"
 )
 
 // A builder stopped in the middle of a run with --state and started again
 // on the same file takes the run up: the selection, which never heard the
 // run end, decides every event the two built between them, and no
-// crossing is built twice. The crossings whose fragments went out while
-// neither ran are lost to core NATS, so the count is checked against the
-// builders' own, not against the readout's.
+// crossing is built twice. Without a capture stream the crossings whose
+// fragments went out while neither ran are lost to core NATS, so the
+// count is checked against the builders' own; with one and --catch-up
+// the second builder builds them from the stream, and every crossing the
+// readout sent is built and decided.
 func TestBuildRestartsWithState(t *testing.T) {
 	if testing.Short() {
-		t.Skip("runs for about 3 s")
+		t.Skip("runs for about 6 s")
 	}
+	t.Run("lost to core NATS", func(t *testing.T) { buildRestarts(t, false) })
+	t.Run("caught up from the capture", func(t *testing.T) { buildRestarts(t, true) })
+}
+
+func buildRestarts(t *testing.T, catchUp bool) {
 	dir := t.TempDir()
-	srv := newTestServer(t)
+	newServer := newTestServer
+	if catchUp {
+		newServer = newJetStreamTestServer
+	}
+	srv := newServer(t)
+	var flags []string
+	var stored func() uint64
+	if catchUp {
+		if code, out, errs := runCLI(t, time.Minute, "capture", "open", "--nats", srv.url, "--max-mib", "64"); code != 0 {
+			t.Fatalf("capture open: exit %d\n%s%s", code, out, errs)
+		}
+		// The stream's own subscriptions are not the services'.
+		var err error
+		if srv.base, err = srv.subs(); err != nil {
+			t.Fatal(err)
+		}
+		flags = []string{"--catch-up"}
+		nc, err := transport.Connect(srv.url, "watch")
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer nc.Close()
+		js, err := jetstream.New(nc)
+		if err != nil {
+			t.Fatal(err)
+		}
+		stored = func() uint64 {
+			st, err := js.Stream(context.Background(), "bunchsieve_fragments")
+			if err != nil {
+				t.Fatal(err)
+			}
+			return st.CachedInfo().State.Msgs
+		}
+	}
 	state := filepath.Join(dir, "build.state")
 	first, second, sel := filepath.Join(dir, "build-1.json"), filepath.Join(dir, "build-2.json"), filepath.Join(dir, "select.json")
 
@@ -46,14 +89,24 @@ func TestBuildRestartsWithState(t *testing.T) {
 	firstDone.Add(1)
 	go func() {
 		defer firstDone.Done()
-		if code, _, stderr := runCLI(t, time.Second, "build", "--nats", srv.url, "--state", state, "--summary-json", first); code != 0 {
+		args := append([]string{"build", "--nats", srv.url, "--state", state, "--summary-json", first}, flags...)
+		if code, _, stderr := runCLI(t, time.Second, args...); code != 0 {
 			t.Errorf("first build: exit %d: %s", code, stderr)
 		}
 	}()
 	srv.awaitSubscriptions(2, "builder and selection")
 	run(time.Minute, "readout", "--nats", srv.url, "--crossings", "6000", "--seed", "3", "--rate", "3000")
 	firstDone.Wait()
-	secondErr := run(time.Minute, "build", "--nats", srv.url, "--state", state, "--summary-json", second)
+	if catchUp {
+		// Let the readout go on alone for a while: what it sends now
+		// reaches no builder, only the stream.
+		atStop := stored()
+		deadline := time.Now().Add(10 * time.Second)
+		for stored() < atStop+200 && time.Now().Before(deadline) {
+			time.Sleep(5 * time.Millisecond)
+		}
+	}
+	secondErr := run(time.Minute, append([]string{"build", "--nats", srv.url, "--state", state, "--summary-json", second}, flags...)...)
 	wg.Wait()
 	if t.Failed() {
 		return
@@ -68,6 +121,14 @@ func TestBuildRestartsWithState(t *testing.T) {
 	}
 	if built > 6000 || s.EventsDecided != built {
 		t.Fatalf("built %d + %d, decided %d of 6000 crossings: want every built event decided once, none built twice", b1.EventsBuilt, b2.EventsBuilt, s.EventsDecided)
+	}
+	if catchUp {
+		if built != 6000 || !strings.Contains(*secondErr, "caught up ") {
+			t.Errorf("with the catch-up: built %d + %d of 6000 crossings; the second builder said %q", b1.EventsBuilt, b2.EventsBuilt, *secondErr)
+		}
+		if got := b1.Fragments.Received + b2.Fragments.Received; got != 6000*16 {
+			t.Errorf("fragments received %d + %d, want every one of 96000 once", b1.Fragments.Received, b2.Fragments.Received)
+		}
 	}
 }
 

@@ -11,12 +11,15 @@ import (
 	"strconv"
 	"time"
 
+	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/collectors"
 	"github.com/prometheus/client_golang/prometheus/promhttp"
 
 	"github.com/bunchsieve/bunchsieve/detector"
 	"github.com/bunchsieve/bunchsieve/services/assembler"
+	"github.com/bunchsieve/bunchsieve/services/capture"
 	"github.com/bunchsieve/bunchsieve/services/emulator"
 	"github.com/bunchsieve/bunchsieve/services/recording"
 	"github.com/bunchsieve/bunchsieve/services/runconfig"
@@ -230,8 +233,16 @@ func runBuild(ctx context.Context, e *env, args []string) error {
 	instance := fs.Int("instance", 0, "this builder's share, 0..builders-1")
 	instances := fs.Int("builders", 1, "number of builder instances sharing the crossings")
 	state := fs.String("state", "", "state `FILE` for stopping and restarting within a run: on a stop the builder writes where it was, and a builder started on the file takes up from there (default: a stop ends this builder's part of the run)")
+	catchUp := fs.Bool("catch-up", false, "with --state: a builder taking up a run first builds, from the capture stream (bunchsieve capture open), the batches published while no builder ran (default: those are lost to core NATS)")
+	catchUpStream := fs.String("catch-up-stream", "", "capture stream `NAME` for --catch-up (default: the subject prefix, dots as underscores, then _fragments)")
 	if err := parse(fs, args, 0); err != nil {
 		return err
+	}
+	if *catchUp && *state == "" {
+		return usagef("--catch-up needs --state: only a builder taking up a run has something to catch up")
+	}
+	if *catchUpStream != "" && !*catchUp {
+		return usagef("--catch-up-stream without --catch-up")
 	}
 	cfg, err := rf.resolve(setFlags(fs))
 	if err != nil {
@@ -249,10 +260,18 @@ func runBuild(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 	defer nc.Close()
+	var backlog assembler.Backlog
+	if *catchUp {
+		b, err := openBacklog(ctx, nc, cfg, *catchUpStream)
+		if err != nil {
+			return err
+		}
+		backlog = b
+	}
 	reg := newRegistry()
 	asm, err := assembler.New(assembler.Config{
 		Builder: cfg.BuilderConfig(sources), Instance: *instance, Instances: *instances,
-		LumiSliceOrbits: cfg.LumiSlice(desc), Subjects: cfg.Subjects(), StateFile: *state,
+		LumiSliceOrbits: cfg.LumiSlice(desc), Subjects: cfg.Subjects(), StateFile: *state, CatchUp: backlog,
 	}, nc, reg)
 	if err != nil {
 		return err
@@ -279,7 +298,26 @@ func runBuild(ctx context.Context, e *env, args []string) error {
 	if err := finish(e, rf.summary, s, s.PrintBuild); err != nil {
 		return err
 	}
+	if taken, repeated := asm.CatchUpStats(); taken+repeated > 0 {
+		fmt.Fprintf(e.stderr, "bunchsieve build: caught up %d fragment batches from the capture stream; %d passed over, taken already\n", taken, repeated)
+	}
 	return runErr
+}
+
+// openBacklog finds the capture stream a restarted builder catches up
+// from, so that a missing one is an error at the start, not a loss later.
+func openBacklog(ctx context.Context, nc *nats.Conn, cfg runconfig.Config, name string) (assembler.Backlog, error) {
+	js, err := jetstream.New(nc)
+	if err != nil {
+		return nil, fmt.Errorf("capture: %w", err)
+	}
+	cctx, cancel := context.WithTimeout(ctx, captureTimeout)
+	defer cancel()
+	b, err := capture.FindBacklog(cctx, js, name, cfg.Subjects())
+	if err != nil {
+		return nil, fmt.Errorf("--catch-up: %w", err)
+	}
+	return b, nil
 }
 
 func runSelect(ctx context.Context, e *env, args []string) error {

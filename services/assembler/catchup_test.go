@@ -1,0 +1,95 @@
+package assembler
+
+import (
+	"context"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats.go/jetstream"
+
+	"github.com/bunchsieve/bunchsieve/services/capture"
+	"github.com/bunchsieve/bunchsieve/services/transport"
+)
+
+// backlogThen runs before before reading the backlog: the test publishes
+// there the batches that reach the restarted builder twice, live and from
+// the stream.
+type backlogThen struct {
+	capture.Backlog
+	before func()
+}
+
+func (b backlogThen) Since(ctx context.Context, subject string, since time.Time, take func(string, []byte) error) error {
+	b.before()
+	return b.Backlog.Since(ctx, subject, since, take)
+}
+
+// A builder stopped in the middle of a run and a new one started on its
+// state file, with the capture stream to catch up from, lose nothing of
+// what was published while neither ran: every crossing is built exactly
+// once, every fragment is received once between them, and the batches
+// that came twice (read from the stream and again live, or taken by the
+// first builder and stored too) are passed over.
+func TestRestartCatchesUpFromTheCapture(t *testing.T) {
+	const crossings = 40
+	srv, err := transport.EmbeddedWith(transport.EmbeddedOptions{Port: -1, StoreDir: t.TempDir(), MaxStore: 256 << 20})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
+	r := newRestartRig(t, srv, "catch", crossings)
+	js, err := jetstream.New(r.conn("capture"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx := context.Background()
+	st, _, err := capture.Open(ctx, js, capture.Options{Subjects: r.subjects, MaxBytes: 64 << 20})
+	if err != nil {
+		t.Fatal(err)
+	}
+	stored := func(n int) func() bool {
+		return func() bool {
+			info, err := st.Info(ctx)
+			return err == nil && info.State.Msgs == uint64(n)
+		}
+	}
+
+	cut := 20*16 + 8   // the first builder stops with crossing 20 half sent
+	gap := 30 * 16     // published while no builder runs
+	twice := 32*16 + 5 // published once the second builder listens, before its catch-up reads
+	backlog := capture.Backlog{JS: js, Name: capture.DefaultName(r.subjects)}
+
+	first, stop, done := r.start(backlog)
+	r.send(0, cut)
+	waitFor(t, "the first builder's fragments", func() bool { return first.Stats().Received == uint64(cut) })
+	stop()
+	if err := <-done; err != nil {
+		t.Fatal(err)
+	}
+	firstStats := first.Stats()
+	if taken, repeated := first.CatchUpStats(); taken != 0 || repeated != 0 {
+		t.Errorf("the first builder caught up %d and passed over %d batches; it had nothing to catch up", taken, repeated)
+	}
+	r.send(cut, gap)
+	waitFor(t, "the stream to store the batches sent while no builder ran", stored(gap))
+
+	second, _, done2 := r.start(backlogThen{backlog, func() {
+		r.send(gap, twice)
+		waitFor(t, "the stream to store the batches sent before the catch-up", stored(twice))
+	}})
+	if !second.Resumed() {
+		t.Fatal("the second builder did not resume")
+	}
+	waitFor(t, "the catch-up", func() bool { taken, _ := second.CatchUpStats(); return taken == uint64(twice-cut) })
+	r.send(twice, len(r.stream.batches))
+	if err := <-done2; err != nil {
+		t.Fatal(err)
+	}
+	r.checkOnceEach(firstStats, second, crossings)
+	// From the stream: what the first builder had (cut batches, passed
+	// over), what nobody had, and what came live as well; live again:
+	// those last ones, passed over.
+	if taken, repeated := second.CatchUpStats(); taken != uint64(twice-cut) || repeated != uint64(cut+twice-gap) {
+		t.Errorf("caught up %d and passed over %d batches, want %d and %d", taken, repeated, twice-cut, cut+twice-gap)
+	}
+}
