@@ -42,8 +42,12 @@ type WindowConfig struct {
 // fields et, eta, phi; the scalar HT is the sum of the E_T of the kept jets
 // with E_T >= HTMin.
 //
-// A window whose sum is beaten by a neighbour with a central cell below
-// the seed gives no jet: the sliding window trades such losses for speed.
+// Only neighbours that could be jets themselves (central cell at least
+// Seed and above zero) compete: a window centred on an empty or sub-seed
+// cell between two deposits has the largest sum but can give no jet, and
+// letting it veto its neighbours would lose both deposits. Two jets two
+// cells apart then share the column or row between them, whose E_T counts
+// in both.
 //
 // A WindowFinder is immutable and safe for concurrent use.
 type WindowFinder struct {
@@ -177,6 +181,13 @@ func (w *WindowFinder) Run(in *Input, out *Output) {
 				if da == 0 && db == 0 {
 					continue
 				}
+				// A window that cannot be a jet itself (its centre below
+				// the seed, or empty) does not veto this one: the deposit
+				// would otherwise give no jet at all.
+				nc := block[2+da][2+db]
+				if nc < seed || !(nc > 0) {
+					continue
+				}
 				s := windowSum(&block, 2+da, 2+db)
 				if s < sum {
 					continue
@@ -187,7 +198,7 @@ func (w *WindowFinder) Run(in *Input, out *Output) {
 				}
 				// Equal sums: the window with the hotter centre wins, then
 				// the lower cell index.
-				if nc := block[2+da][2+db]; nc > centre || (nc == centre && e*nphi+(iphi+db+nphi)%nphi < c) {
+				if nc > centre || (nc == centre && e*nphi+(iphi+db+nphi)%nphi < c) {
 					isMax = false
 					break
 				}

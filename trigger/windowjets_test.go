@@ -122,6 +122,42 @@ func TestWindowJetTiesDoNotDoubleCount(t *testing.T) {
 	})
 }
 
+// Two deposits with an empty cell between them: the window on the empty
+// cell has the largest sum but cannot be a jet, and must not cost the
+// deposits theirs. Worked by hand: the window on (40, 10) holds only the
+// 100 GeV cell, the one on (40, 12) only the 25 GeV cell (the cell between
+// is empty), so the jets are 100 and 25 GeV at their cell centres; in eta
+// and diagonally the same.
+func TestWindowJetsBesideAnEmptyCentre(t *testing.T) {
+	g := lanternGrid()
+	for _, c := range []struct {
+		name         string
+		a, b         [2]int
+		wantA, wantB float64
+		seed         float64
+	}{
+		{name: "in phi", a: [2]int{40, 10}, b: [2]int{40, 12}, wantA: 100, wantB: 25, seed: 5},
+		{name: "in eta", a: [2]int{40, 10}, b: [2]int{42, 10}, wantA: 30, wantB: 30, seed: 5},
+		{name: "diagonally", a: [2]int{40, 10}, b: [2]int{42, 12}, wantA: 60, wantB: 40, seed: 5},
+		{name: "seed zero", a: [2]int{40, 10}, b: [2]int{40, 12}, wantA: 100, wantB: 25},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			jets, ht := findJets(t, WindowConfig{Seed: c.seed},
+				cellTower(g, 0, c.a[0], c.a[1], c.wantA), cellTower(g, 0, c.b[0], c.b[1], c.wantB))
+			first, second := c.a, c.b
+			if c.wantB > c.wantA {
+				first, second = c.b, c.a
+			}
+			hi, lo := max(c.wantA, c.wantB), min(c.wantA, c.wantB)
+			checkJets(t, jets, jetWant{hi, g.EtaCentre(first[0]), g.PhiCentre(first[1])},
+				jetWant{lo, g.EtaCentre(second[0]), g.PhiCentre(second[1])})
+			if ht != hi+lo {
+				t.Errorf("HT %v, want %v", ht, hi+lo)
+			}
+		})
+	}
+}
+
 func TestNewWindowFinderRejectsBadEnergies(t *testing.T) {
 	for _, cfg := range []WindowConfig{{Seed: -1}, {MinET: math.NaN()}, {HTMin: math.Inf(1)}} {
 		if _, err := NewWindowFinder(cfg); err == nil {
