@@ -82,10 +82,11 @@ type Config struct {
 type Backlog interface {
 	// Since hands take every stored batch on subjects matching subject
 	// that the store received at or after since, in the order stored,
-	// up to at least the last batch stored when Since was called, with
-	// the subject it was published on. It stops at take's first error
-	// and returns it; data is not reused after take returns.
-	Since(ctx context.Context, subject string, since time.Time, take func(subject string, data []byte) error) error
+	// with the subject it was published on, until take says it has
+	// enough (more false) or the store has had nothing new for a while.
+	// It stops at take's first error and returns it; data is not reused
+	// after take returns.
+	Since(ctx context.Context, subject string, since time.Time, take func(subject string, data []byte) (more bool, err error)) error
 }
 
 // maxBatchBytes keeps an event batch well under the NATS payload limit.
@@ -268,7 +269,7 @@ func (a *Assembler) Run(ctx context.Context) error {
 	close(a.ready)
 	defer sub.Unsubscribe()
 	if a.resumeFrom != nil && a.cfg.CatchUp != nil && a.resumeFrom.StoppedUnixNs > 0 {
-		a.catchUp(ctx)
+		a.catchUp(ctx, in)
 	}
 	tick := time.NewTicker(a.cfg.Tick)
 	defer tick.Stop()
@@ -348,17 +349,37 @@ func (a *Assembler) Run(ctx context.Context) error {
 
 // catchUp takes the batches of this share that Config.CatchUp stored from
 // CatchUpMargin before the previous builder stopped, passing over those
-// that builder had taken; live batches wait in the subscription's queue
-// meanwhile, and those read here already are passed over in turn. A
+// that builder had taken, until the store reaches the live batches: for
+// every source with a live batch queued, the one before its first. The
+// store's end when reading starts is no bound, as it stores a batch a
+// little after the server routes it. The live batches queued meanwhile
+// are then taken, those read from the store already passed over. A
 // failure is logged and the builder goes on with the live batches: what
 // the catch-up could not read is lost, as it would be without one.
-func (a *Assembler) catchUp(ctx context.Context) {
+func (a *Assembler) catchUp(ctx context.Context, in chan *nats.Msg) {
 	since := time.Unix(0, a.resumeFrom.StoppedUnixNs).Add(-a.cfg.CatchUpMargin)
 	a.mu.Lock()
 	a.dedupe = true
 	a.mu.Unlock()
+	var live []*nats.Msg
+	firstLive := map[uint32]uint64{} // by expected source
 	n := 0
-	err := a.cfg.CatchUp.Since(ctx, a.cfg.Subjects.FragmentsOf(a.cfg.Instance), since, func(subject string, data []byte) error {
+	err := a.cfg.CatchUp.Since(ctx, a.cfg.Subjects.FragmentsOf(a.cfg.Instance), since, func(subject string, data []byte) (bool, error) {
+		for queued := true; queued; {
+			select {
+			case m := <-in:
+				live = append(live, m)
+				if src, seq, ok := batchHeader(m.Data); ok {
+					if _, expected := a.sourceIndex[src]; expected {
+						if _, seen := firstLive[src]; !seen {
+							firstLive[src] = seq
+						}
+					}
+				}
+			default:
+				queued = false
+			}
+		}
 		a.mu.Lock()
 		defer a.mu.Unlock()
 		repeated := a.repeated
@@ -372,10 +393,14 @@ func (a *Assembler) catchUp(ctx context.Context) {
 				a.pubErr = err
 			}
 		}
-		return nil
+		return !a.reachedLiveLocked(firstLive), nil
 	})
 	a.mu.Lock()
 	defer a.mu.Unlock()
+	now := time.Now().UnixNano()
+	for _, m := range live {
+		a.takeLocked(m, now)
+	}
 	if perr := a.publishLocked(false); perr != nil && a.pubErr == nil {
 		a.pubErr = perr
 	}
@@ -385,6 +410,25 @@ func (a *Assembler) catchUp(ctx context.Context) {
 		return
 	}
 	a.log.Info("caught up from the capture stream", "instance", a.cfg.Instance, "taken", a.caughtUp, "passed_over", a.repeated)
+}
+
+// reachedLiveLocked reports whether the batches taken so far reach the
+// live ones: for every source in firstLive, every batch before its first
+// live one. With no live batch yet it is false: the catch-up then ends
+// when the store has nothing new. Called with a.mu held.
+func (a *Assembler) reachedLiveLocked(firstLive map[uint32]uint64) bool {
+	if len(firstLive) == 0 {
+		return false
+	}
+	for src, first := range firstLive {
+		if first == 0 {
+			continue
+		}
+		if last, ok := a.lastBatch[src]; !ok || last < first-1 {
+			return false
+		}
+	}
+	return true
 }
 
 // CatchUpStats returns how many fragment batches a resumed builder took

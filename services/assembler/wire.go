@@ -185,6 +185,39 @@ func decodeBatch(data []byte, wb *wireBatch, p *fragmentPool) error {
 	return nil
 }
 
+// batchHeader reads a fragment batch's source and sequence number without
+// decoding its fragments; ok is false if data is not a batch's encoding
+// at the top level. Fields left at zero are not encoded, so the whole
+// batch is walked.
+func batchHeader(data []byte) (source uint32, seq uint64, ok bool) {
+	for len(data) > 0 {
+		num, typ, n := protowire.ConsumeTag(data)
+		if n < 0 {
+			return 0, 0, false
+		}
+		data = data[n:]
+		if typ == protowire.VarintType && (num == batchSourceID || num == batchSequence) {
+			v, n := protowire.ConsumeVarint(data)
+			if n < 0 {
+				return 0, 0, false
+			}
+			data = data[n:]
+			if num == batchSourceID {
+				source = uint32(v)
+			} else {
+				seq = v
+			}
+			continue
+		}
+		n = protowire.ConsumeFieldValue(num, typ, data)
+		if n < 0 {
+			return 0, 0, false
+		}
+		data = data[n:]
+	}
+	return source, seq, true
+}
+
 func (wb *wireBatch) fail(p *fragmentPool) error {
 	for _, h := range wb.frags {
 		p.put(h)

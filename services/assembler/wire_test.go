@@ -429,3 +429,23 @@ func toyGenerator(tb testing.TB, seed uint64) (*detector.SimpleGenerator, *detec
 	}
 	return gen, part
 }
+
+// batchHeader agrees with proto.Unmarshal on the source and sequence of
+// every batch of a run (zero sequence numbers, which are not encoded,
+// included), and refuses bytes that are not a batch.
+func TestBatchHeaderMatchesProto(t *testing.T) {
+	stream, _ := oneCrossingBatches(t, 30)
+	for i, data := range stream.batches {
+		var want pb.FragmentBatch
+		if err := proto.Unmarshal(data, &want); err != nil {
+			t.Fatal(err)
+		}
+		src, seq, ok := batchHeader(data)
+		if !ok || src != want.SourceId || seq != want.Sequence {
+			t.Fatalf("batch %d: (%d, %d, %v), proto says source %d sequence %d", i, src, seq, ok, want.SourceId, want.Sequence)
+		}
+	}
+	if _, _, ok := batchHeader([]byte{0x08}); ok {
+		t.Error("a tag without its value read as a batch")
+	}
+}

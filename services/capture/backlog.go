@@ -19,9 +19,13 @@ type Backlog struct {
 	// Name is the stream's name; empty means DefaultName of the default
 	// subject prefix.
 	Name string
-	// Idle bounds how long Since waits for the next batch while batches
-	// are still to be read (a server restarting); zero means 5 s.
+	// Idle bounds how long Since goes on when the stream cannot be read
+	// (a server restarting); zero means 5 s.
 	Idle time.Duration
+	// Quiet is how long Since waits for the stream to store anything new
+	// before it ends, when take has not said it has enough; zero means
+	// 1 s.
+	Quiet time.Duration
 }
 
 // FindBacklog returns the Backlog of the capture stream of subjects s
@@ -42,13 +46,17 @@ func FindBacklog(ctx context.Context, js jetstream.JetStream, name string, s tra
 	return Backlog{JS: js, Name: name}, nil
 }
 
-// Since hands take every batch on subjects matching subject that the
-// stream stored at or after since, in stream order, up to the last one
-// stored when Since was called (later ones the caller, subscribed before
-// the call, receives live); it returns take's first error,
-// an error when the stream is missing, and one when no batch came for
-// b.Idle with some still to read.
-func (b Backlog) Since(ctx context.Context, subject string, since time.Time, take func(subject string, data []byte) error) error {
+// Since hands take, in stream order, every batch on subjects matching
+// subject that the stream stored at or after since, until take says it
+// has enough (more false) or nothing new has been stored for b.Quiet.
+// The stream stores a batch a little after the server routes it, so its
+// end when Since is called bounds nothing: a batch published before the
+// caller subscribed may be stored later, under load by tens of
+// milliseconds. The caller, which sees its live batches, knows when the
+// stream has reached them. Since returns take's first error, an error
+// when the stream is missing, and one when the stream could not be read
+// for b.Idle.
+func (b Backlog) Since(ctx context.Context, subject string, since time.Time, take func(subject string, data []byte) (more bool, err error)) error {
 	name := b.Name
 	if name == "" {
 		name = DefaultName(transport.Subjects{})
@@ -57,49 +65,46 @@ func (b Backlog) Since(ctx context.Context, subject string, since time.Time, tak
 	if idle <= 0 {
 		idle = 5 * time.Second
 	}
-	stream, err := b.JS.Stream(ctx, name)
-	if err != nil {
+	quiet := b.Quiet
+	if quiet <= 0 {
+		quiet = time.Second
+	}
+	if _, err := b.JS.Stream(ctx, name); err != nil {
 		return describe(name, err)
 	}
-	state := stream.CachedInfo().State
-	if state.LastSeq == 0 || state.LastTime.Before(since) {
-		return nil // nothing stored since
-	}
-	target := state.LastSeq
 	rd := &reader{js: b.JS, stream: name, since: since, filter: subject}
 	defer rd.close()
-	last := time.Now()
-	for rd.next <= target {
+	readable, newest := time.Now(), time.Now()
+	for {
 		if err := ctx.Err(); err != nil {
 			return err
 		}
-		done := false
-		got, err := rd.fetch(ctx, fetchWait(idle), func(m jetstream.Msg, md *jetstream.MsgMetadata) error {
-			if md.Sequence.Stream > target {
-				// Published after Since was called: the caller
-				// receives it live.
-				done = true
+		enough := false
+		got, err := rd.fetch(ctx, fetchWait(quiet), func(m jetstream.Msg, _ *jetstream.MsgMetadata) error {
+			if enough {
+				return nil // the rest of the fetch is not wanted
+			}
+			more, err := take(m.Subject(), m.Data())
+			enough = !more
+			return err
+		})
+		switch {
+		case err != nil:
+			return err
+		case enough:
+			return nil
+		case got > 0:
+			readable, newest = time.Now(), time.Now()
+		case rd.cons == nil:
+			// The reading failed (reader.fetch waited before returning).
+			if time.Since(readable) >= idle {
+				return fmt.Errorf("capture: stream %s could not be read for %v", name, idle)
+			}
+		default:
+			readable = time.Now()
+			if time.Since(newest) >= quiet {
 				return nil
 			}
-			// Nothing more matches the filter for now: whatever comes
-			// later is after target.
-			done = done || md.NumPending == 0
-			return take(m.Subject(), m.Data())
-		})
-		if err != nil {
-			return err
-		}
-		if got > 0 {
-			last = time.Now()
-		} else if rd.cons != nil && rd.cons.CachedInfo().NumPending == 0 {
-			done = true // the consumer found nothing since
-		}
-		if done {
-			return nil
-		}
-		if time.Since(last) >= idle {
-			return fmt.Errorf("capture: stream %s: no batch read for %v, with batches up to sequence %d still to read", name, idle, target)
 		}
 	}
-	return nil
 }

@@ -14,7 +14,8 @@ import (
 
 // Since reads the batches of one share stored from a time on, in stream
 // order and nothing else: not the other share's, not those stored before
-// that time, not those stored after the call.
+// that time; it stops when take has enough, or once the stream has
+// stored nothing new for the quiet time.
 func TestBacklogSince(t *testing.T) {
 	srv := jsServer(t, t.TempDir())
 	nc, js := connect(t, srv)
@@ -24,7 +25,7 @@ func TestBacklogSince(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	b := Backlog{JS: js, Name: DefaultName(s), Idle: 2 * time.Second}
+	b := Backlog{JS: js, Name: DefaultName(s), Idle: 2 * time.Second, Quiet: 100 * time.Millisecond}
 	type got struct {
 		subject string
 		seq     uint64
@@ -32,13 +33,13 @@ func TestBacklogSince(t *testing.T) {
 	read := func(share int, since time.Time) []got {
 		t.Helper()
 		var out []got
-		err := b.Since(ctx, s.FragmentsOf(share), since, func(subject string, data []byte) error {
+		err := b.Since(ctx, s.FragmentsOf(share), since, func(subject string, data []byte) (bool, error) {
 			var fb pb.FragmentBatch
 			if err := proto.Unmarshal(data, &fb); err != nil {
 				t.Fatal(err)
 			}
 			out = append(out, got{subject, fb.Sequence})
-			return nil
+			return true, nil
 		})
 		if err != nil {
 			t.Fatal(err)
@@ -82,13 +83,17 @@ func TestBacklogSince(t *testing.T) {
 		t.Errorf("since a time to come: %v", none)
 	}
 
-	// take's error ends the reading and comes back.
-	stop := b.Since(ctx, s.FragmentsOf(0), time.Time{}, func(string, []byte) error { return context.Canceled })
+	// take's error ends the reading and comes back; so does its "enough".
+	stop := b.Since(ctx, s.FragmentsOf(0), time.Time{}, func(string, []byte) (bool, error) { return true, context.Canceled })
 	if stop != context.Canceled {
 		t.Errorf("take's error: %v", stop)
 	}
+	n := 0
+	if err := b.Since(ctx, s.FragmentsOf(0), time.Time{}, func(string, []byte) (bool, error) { n++; return n < 2, nil }); err != nil || n != 2 {
+		t.Errorf("enough after 2 batches: %d taken, %v", n, err)
+	}
 	// No stream: a clear error.
-	err = Backlog{JS: js, Name: "absent"}.Since(ctx, s.FragmentsOf(0), time.Time{}, func(string, []byte) error { return nil })
+	err = Backlog{JS: js, Name: "absent"}.Since(ctx, s.FragmentsOf(0), time.Time{}, func(string, []byte) (bool, error) { return true, nil })
 	if err == nil || !strings.Contains(err.Error(), "absent") {
 		t.Errorf("a missing stream: %v", err)
 	}

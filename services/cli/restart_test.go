@@ -127,7 +127,8 @@ func buildRestarts(t *testing.T, catchUp bool) {
 			t.Errorf("with the catch-up: built %d + %d of 6000 crossings; the second builder said %q", b1.EventsBuilt, b2.EventsBuilt, *secondErr)
 		}
 		if got := b1.Fragments.Received + b2.Fragments.Received; got != 6000*16 {
-			t.Errorf("fragments received %d + %d, want every one of 96000 once", b1.Fragments.Received, b2.Fragments.Received)
+			t.Errorf("fragments received %d + %d, want every one of 96000 once (first %+v %+v, second %+v %+v)",
+				b1.Fragments.Received, b2.Fragments.Received, b1.Fragments, b1.Transport, b2.Fragments, b2.Transport)
 		}
 	}
 }
