@@ -185,6 +185,8 @@ func TestBadInputGivesOneLineError(t *testing.T) {
 		{[]string{"select", "--nats", "nats://127.0.0.1:1"}, "127.0.0.1:1"},
 		{[]string{"readout", "--nats", "nats://127.0.0.1:1", "--crossings", "10"}, "127.0.0.1:1"},
 		{[]string{"build", "--instance", "2", "--builders", "2"}, "--instance"},
+		{[]string{"readout", "--replay", "x.bss", "--rate", "5000", "--speed", "2"}, "give one"},
+		{[]string{"readout", "--replay", "x.bss", "--rate", "0"}, "--rate with --replay"},
 		{[]string{"build", "--catch-up"}, "--catch-up needs --state"},
 		{[]string{"build", "--state", state, "--catch-up-stream", "x"}, "--catch-up-stream without --catch-up"},
 		{[]string{"build", "--nats", js, "--state", state, "--catch-up"}, "no stream bunchsieve_fragments"},

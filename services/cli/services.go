@@ -87,7 +87,7 @@ func runReadout(ctx context.Context, e *env, args []string) error {
 	url := fs.String("nats", defaultNATS, "NATS server `URL`")
 	partitions := fs.Int("builders", 1, "number of builder instances sharing the crossings")
 	replay := fs.String("replay", "", "publish the recorded stream `FILE` instead of generating crossings")
-	speed := fs.String("speed", "1", "replay speed: a factor of real time (1 = as recorded) or max")
+	speed := fs.String("speed", "max", "replay pace as a factor of the crossings' own machine time (1 = the collider's crossing rate, tens of millions a second: as fast as possible in practice), or max; --rate N replays at N crossings/s instead")
 	var faults faultFlags
 	fs.Var(&faults, "fault", faultHelp)
 	if err := parse(fs, args, 0); err != nil {
@@ -102,19 +102,27 @@ func runReadout(ctx context.Context, e *env, args []string) error {
 		return usagef("--builders %d: want >= 1", *partitions)
 	}
 	if *replay != "" {
-		for _, f := range []string{"seed", "rate", "crossings", "fault", "sources", "builders", "config"} {
+		for _, f := range []string{"seed", "crossings", "fault", "sources", "builders", "config"} {
 			if set[f] {
 				return usagef("--%s does not apply to --replay: the stream file fixes it", f)
 			}
 		}
-		factor := 0.0
-		if *speed != "max" {
-			factor, err = strconv.ParseFloat(*speed, 64)
-			if err != nil || !(factor > 0) || math.IsInf(factor, 0) {
-				return usagef("--speed %q: want a positive factor of real time or max", *speed)
+		var pace emulator.Pace
+		switch {
+		case set["rate"] && set["speed"]:
+			return usagef("--rate and --speed both pace a replay; give one")
+		case set["rate"]:
+			if !(cfg.RateHz > 0) {
+				return usagef("--rate with --replay: want a positive number of crossings per second (without --rate the replay goes as fast as possible)")
+			}
+			pace.RateHz = cfg.RateHz
+		case *speed != "max":
+			pace.Speed, err = strconv.ParseFloat(*speed, 64)
+			if err != nil || !(pace.Speed > 0) || math.IsInf(pace.Speed, 0) {
+				return usagef("--speed %q: want a positive factor of the machine's time or max", *speed)
 			}
 		}
-		return replayStream(ctx, e, *url, *replay, factor, cfg, rf)
+		return replayStream(ctx, e, *url, *replay, pace, cfg, rf)
 	} else if set["speed"] {
 		return usagef("--speed applies to --replay only")
 	}
@@ -194,7 +202,7 @@ func newGenerator(cfg runconfig.Config) (detector.Generator, *detector.Partition
 	return gen, part, sources, nil
 }
 
-func replayStream(ctx context.Context, e *env, url, path string, speed float64, cfg runconfig.Config, rf runFlags) error {
+func replayStream(ctx context.Context, e *env, url, path string, pace emulator.Pace, cfg runconfig.Config, rf runFlags) error {
 	r, err := recording.Open(path)
 	if err != nil {
 		return err
@@ -211,7 +219,7 @@ func replayStream(ctx context.Context, e *env, url, path string, speed float64, 
 		defer cancel()
 	}
 	start := time.Now()
-	st, runErr := emulator.Replay(ctx, r, emulator.NewNATSSink(nc, cfg.Subjects()), speed)
+	st, runErr := emulator.Replay(ctx, r, emulator.NewNATSSink(nc, cfg.Subjects()), pace)
 	took := time.Since(start)
 	fmt.Fprintf(e.stdout, "readout: replayed %d batches, %d fragments from %s in %.2fs (%.0f fragments/s)\n",
 		st.Batches, st.Fragments, path, took.Seconds(), float64(st.Fragments)/took.Seconds())

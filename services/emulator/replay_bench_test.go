@@ -67,7 +67,7 @@ func BenchmarkReplay(b *testing.B) {
 		if err != nil {
 			b.Fatal(err)
 		}
-		st, err := Replay(context.Background(), r, sink, 0)
+		st, err := Replay(context.Background(), r, sink, Pace{})
 		if err != nil {
 			b.Fatal(err)
 		}
