@@ -177,7 +177,7 @@ func TestNATSClusterForms(t *testing.T) {
 		opts.Routes = routes
 		opts.StoreDir = t.TempDir()
 		opts.JetStreamMaxMemory, opts.JetStreamMaxStore = 64<<20, 256<<20
-		opts.NoLog, opts.NoSigs = os.Getenv("BUNCHSIEVE_NATS_LOG") == "", true
+		opts.NoLog, opts.NoSigs = !transport.LogServers(), true
 		s, err := server.NewServer(opts)
 		if err != nil {
 			t.Fatalf("nats-%d: %v", i, err)

@@ -76,7 +76,7 @@ func Cluster(n int, timeout time.Duration) (*Network, error) {
 			ServerName: fmt.Sprintf("loadtest-%d", i),
 			Host:       "127.0.0.1",
 			Port:       -1,
-			NoLog:      true,
+			NoLog:      !transport.LogServers(),
 			NoSigs:     true,
 			MaxPayload: 8 << 20,
 			MaxPending: 256 << 20,
@@ -87,6 +87,9 @@ func Cluster(n int, timeout time.Duration) (*Network, error) {
 		s, err := server.NewServer(o)
 		if err != nil {
 			return nil, fmt.Errorf("loadtest: cluster server: %w", err)
+		}
+		if transport.LogServers() {
+			s.ConfigureLogger()
 		}
 		s.Start()
 		if !s.ReadyForConnections(timeout) {

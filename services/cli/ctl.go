@@ -18,6 +18,7 @@ import (
 	"google.golang.org/grpc/status"
 
 	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
+	"github.com/bunchsieve/bunchsieve/trigger"
 )
 
 // tokenCreds attaches the bearer token to each call. Over plaintext it is
@@ -235,11 +236,25 @@ func menuRequest(e *env, args []string) (*pb.LoadMenuRequest, error) {
 	if err != nil {
 		return nil, err
 	}
-	data, err := os.ReadFile(file)
+	data, err := readMenu(file)
 	if err != nil {
 		return nil, err
 	}
 	return &pb.LoadMenuRequest{Menu: string(data), PrescaleSet: *set}, nil
+}
+
+// readMenu reads a menu file and parses it here first, so that a mistake
+// is reported at its FILE:LINE:COL (the server, which sees only the text,
+// would name no file); the server validates it again.
+func readMenu(file string) ([]byte, error) {
+	data, err := os.ReadFile(file)
+	if err != nil {
+		return nil, err
+	}
+	if _, err := trigger.ParseMenu(file, data); err != nil {
+		return nil, err
+	}
+	return data, nil
 }
 
 func configureRequest(e *env, args []string) (*pb.ConfigureRequest, error) {
@@ -262,7 +277,7 @@ func configureRequest(e *env, args []string) (*pb.ConfigureRequest, error) {
 	req := &pb.ConfigureRequest{Run: uint32(*run), Seed: *seed, Sources: uint32(*sources), RateHz: *rate,
 		Crossings: *crossings, DurationS: duration.Seconds(), PrescaleSet: *set}
 	if *menu != "" {
-		data, err := os.ReadFile(*menu)
+		data, err := readMenu(*menu)
 		if err != nil {
 			return nil, err
 		}

@@ -106,3 +106,22 @@ func TestCtlMenuSetEitherSide(t *testing.T) {
 		t.Error("ctl menu with two files: no error")
 	}
 }
+
+// A bad menu given to ctl menu or ctl configure --menu is reported at its
+// file's line and column before anything is sent (the server sees only
+// the text and could name no file).
+func TestCtlMenuErrorNamesTheFile(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "bad.yaml")
+	if err := os.WriteFile(path, []byte("menu: m\nversion: 1\nrules:\n  a: {when: \"met > 120\"}\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	e := &env{stdout: &bytes.Buffer{}, stderr: &bytes.Buffer{}}
+	_, err := menuRequest(e, []string{path})
+	if err == nil || !strings.HasPrefix(err.Error(), path+":4:") {
+		t.Errorf("ctl menu: %v; want an error at %s:4:", err, path)
+	}
+	_, err = configureRequest(e, []string{"--menu", path})
+	if err == nil || !strings.HasPrefix(err.Error(), path+":4:") {
+		t.Errorf("ctl configure --menu: %v; want an error at %s:4:", err, path)
+	}
+}

@@ -20,7 +20,7 @@ func runUp(ctx context.Context, e *env, args []string) error {
 	natsListen := fs.String("nats-listen", "127.0.0.1:-1", "`host:port` of the embedded NATS server (port -1 picks a free one)")
 	statusEvery := fs.Duration("status-every", 0, "interval of the status line; 0 takes the configuration's (1s)")
 	quiet := fs.Bool("quiet", false, "print no status lines, only the summary")
-	keep := fs.String("capture", "", "also store the readout's fragment batches in a JetStream stream of the embedded server (as `capture open` does on a deployment) and save the run from it into the stream `FILE` at the end")
+	keep := fs.String("capture", "", "save the run into the stream `FILE` at the end, from a JetStream stream of the embedded server that stores every fragment batch the readout publishes (as capture open does on a deployment)")
 	var faults faultFlags
 	fs.Var(&faults, "fault", faultHelp)
 	if err := parse(fs, args, 0); err != nil {

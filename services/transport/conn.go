@@ -3,6 +3,7 @@ package transport
 import (
 	"errors"
 	"fmt"
+	"os"
 	"time"
 
 	"github.com/nats-io/nats-server/v2/server"
@@ -75,6 +76,15 @@ type EmbeddedOptions struct {
 	MaxStore int64
 }
 
+// LogServerEnv is the environment variable that, set to 1, makes the
+// embedded NATS servers log to standard error (they are silent
+// otherwise), for looking into a test or a run.
+const LogServerEnv = "BUNCHSIEVE_NATS_LOG"
+
+// LogServers reports whether LogServerEnv asks the embedded servers to
+// log.
+func LogServers() bool { return os.Getenv(LogServerEnv) == "1" }
+
 // embeddedMaxMemory caps JetStream's memory store: its default takes most
 // of the machine's RAM, and nothing here uses memory storage.
 const embeddedMaxMemory = 64 << 20
@@ -89,7 +99,7 @@ func EmbeddedWith(o EmbeddedOptions) (*server.Server, error) {
 		ServerName: "bunchsieve-embedded",
 		Host:       host,
 		Port:       o.Port,
-		NoLog:      true,
+		NoLog:      !LogServers(),
 		NoSigs:     true,
 		MaxPayload: 8 << 20,
 		// A selection or builder that falls behind for a moment should be
@@ -108,6 +118,9 @@ func EmbeddedWith(o EmbeddedOptions) (*server.Server, error) {
 	srv, err := server.NewServer(opts)
 	if err != nil {
 		return nil, fmt.Errorf("transport: embedded NATS server: %w", err)
+	}
+	if LogServers() {
+		srv.ConfigureLogger()
 	}
 	srv.Start()
 	if !srv.ReadyForConnections(5 * time.Second) {
