@@ -48,7 +48,7 @@ type Features struct {
 	// Used counts the towers that passed the tower selection.
 	Used int
 	// Bad counts towers ignored because their E_T, eta or phi was NaN or
-	// infinite.
+	// infinite, or their E_T beyond MaxTowerET.
 	Bad int
 	// OffGrid counts selected towers whose (IEta, IPhi) lies outside the
 	// grid: they count towards MET and sum ET but no grid-based collection
@@ -96,6 +96,11 @@ func (f *Features) phiTable(g Grid, valid bool) {
 		f.phiTab[i] = phiColumn{c, s, co}
 	}
 }
+
+// etaSlack widens the eta bounds of the tower selection by far less than
+// any tower's size, so that rounding of a cell centre computed one way or
+// another cannot put a tower on the bound on one side of it.
+const etaSlack = 1e-9
 
 // etaRows returns, per eta row of g, whether the |eta| of its centre lies
 // in [etaMin, etaMax], as the tower selection tests a Tower there. The
@@ -203,6 +208,18 @@ func sameCollections(a, b []CollectionConfig) bool {
 // finite reports whether x is neither NaN nor infinite.
 func finite(x float64) bool { return x-x == 0 }
 
+// MaxTowerET is the largest E_T a tower may carry, in GeV: far above what
+// any collider's beams can put into one tower (the Meridian ring's
+// 14 TeV in all), and small enough that the sums of every tower of any
+// event stay finite. A tower beyond it is a unit or encoding mistake and
+// is counted in Features.Bad, as NaN and infinite values are: two towers
+// of 1e308 GeV would otherwise make MET and sum ET infinite, and pass
+// every threshold.
+const MaxTowerET = 1e6
+
+// badET reports an E_T that is NaN, infinite or beyond MaxTowerET.
+func badET(et float64) bool { return !(math.Abs(et) <= MaxTowerET) }
+
 // ComputeFeatures fills f from the towers of ev under cfg. It reads ev and
 // never keeps a reference to it beyond the next call with the same f.
 // Towers with a non-finite E_T, eta or phi are ignored and counted in
@@ -252,8 +269,12 @@ func computeFeatures(ev *Event, cfg *FeatureConfig, f *Features) {
 	// fails them, NaN and infinities included, is sorted out in the slow
 	// path.
 	lo := max(cfg.NoiseCut, 0)
-	etaMin, etaMax := cfg.EtaMin, cfg.EtaMax
-	if etaMax <= 0 {
+	// The bounds are widened by etaSlack: a bound written at a tower
+	// centre (eta_max: 1.15) must keep the towers there on both sides,
+	// whose centres rounding puts at +1.1500000000000004 and
+	// -1.1499999999999999.
+	etaMin, etaMax := cfg.EtaMin-etaSlack, cfg.EtaMax+etaSlack
+	if cfg.EtaMax <= 0 {
 		etaMax = math.MaxFloat64
 	}
 	var sx, sy, sum float64
@@ -279,8 +300,8 @@ func computeFeatures(ev *Event, cfg *FeatureConfig, f *Features) {
 		t := &towers[i]
 		et := t.ET
 		a := math.Abs(t.Eta)
-		if !(et >= lo && et <= math.MaxFloat64 && a >= etaMin && a <= etaMax) {
-			if !finite(et) || !finite(t.Eta) || !finite(t.Phi) {
+		if !(et >= lo && et <= MaxTowerET && a >= etaMin && a <= etaMax) {
+			if badET(et) || !finite(t.Eta) || !finite(t.Phi) {
 				bad++
 			}
 			continue
@@ -345,8 +366,8 @@ func computeFeatures(ev *Event, cfg *FeatureConfig, f *Features) {
 			ieta, iphi := uint(t.IEta), uint(t.IPhi)
 			if ieta >= neta || iphi >= nphi {
 				eta, phi := g.EtaCentre(int(ieta)), g.PhiCentre(int(iphi))
-				if a := math.Abs(eta); !(et >= lo && et <= math.MaxFloat64 && a >= etaMin && a <= etaMax) || !finite(phi) {
-					if !finite(et) || !finite(eta) || !finite(phi) {
+				if a := math.Abs(eta); !(et >= lo && et <= MaxTowerET && a >= etaMin && a <= etaMax) || !finite(phi) {
+					if badET(et) || !finite(eta) || !finite(phi) {
 						bad++
 					}
 					continue
@@ -360,8 +381,8 @@ func computeFeatures(ev *Event, cfg *FeatureConfig, f *Features) {
 				offGrid++
 				continue
 			}
-			if !(et >= lo && et <= math.MaxFloat64) || !rowOK[ieta] {
-				if !finite(et) {
+			if !(et >= lo && et <= MaxTowerET) || !rowOK[ieta] {
+				if badET(et) {
 					bad++
 				}
 				continue
@@ -412,8 +433,8 @@ func computeFeatures(ev *Event, cfg *FeatureConfig, f *Features) {
 			ieta, iphi := uint(t.IEta), uint(t.IPhi)
 			if ieta >= neta || iphi >= nphi {
 				eta, phi := g.EtaCentre(int(ieta)), g.PhiCentre(int(iphi))
-				if a := math.Abs(eta); !(et >= lo && et <= math.MaxFloat64 && a >= etaMin && a <= etaMax) || !finite(phi) {
-					if !finite(et) || !finite(eta) || !finite(phi) {
+				if a := math.Abs(eta); !(et >= lo && et <= MaxTowerET && a >= etaMin && a <= etaMax) || !finite(phi) {
+					if badET(et) || !finite(eta) || !finite(phi) {
 						bad++
 					}
 					continue
@@ -427,8 +448,8 @@ func computeFeatures(ev *Event, cfg *FeatureConfig, f *Features) {
 				offGrid++
 				continue
 			}
-			if !(et >= lo && et <= math.MaxFloat64) || !rowOK[ieta] {
-				if !finite(et) {
+			if !(et >= lo && et <= MaxTowerET) || !rowOK[ieta] {
+				if badET(et) {
 					bad++
 				}
 				continue

@@ -105,3 +105,45 @@ func TestFeaturesReuse(t *testing.T) {
 		t.Fatalf("HT %v, want 7", ht)
 	}
 }
+
+// An eta bound written at a tower centre keeps the towers there on both
+// sides: docs/menu.md says both bounds are inclusive, and the centres of
+// the mirror rows 51 and 28 (|eta| = 1.15) come out of the grid's
+// arithmetic as 1.1500000000000004 and 1.1499999999999999. Every centre
+// from 0.05 to 3.95 is tried as eta_max and as eta_min.
+func TestEtaBoundAtATowerCentreIsSymmetric(t *testing.T) {
+	g := lanternGrid()
+	for k := 0; k < g.EtaBins/2; k++ {
+		plus, minus := g.EtaBins/2+k, g.EtaBins/2-1-k // mirror rows
+		bound := 0.05 + 0.1*float64(k)
+		ev := &Event{Towers: []Tower{cellTower(g, 0, plus, 3, 10), cellTower(g, 0, minus, 40, 10)}}
+		for _, cfg := range []FeatureConfig{{Grid: g, EtaMax: bound}, {Grid: g, EtaMin: bound}} {
+			var f Features
+			ComputeFeatures(ev, cfg, &f)
+			if f.SumET != 20 {
+				t.Errorf("bound %.2f (eta_min %v, eta_max %v): sum ET %v of the towers at +-%.2f, want both (20 GeV)",
+					bound, cfg.EtaMin, cfg.EtaMax, f.SumET, bound)
+			}
+		}
+	}
+}
+
+// Huge finite energies are refused like infinite ones: two towers of 1e308
+// GeV summed by hand overflow to +Inf, which would pass every threshold;
+// they are counted bad and the event's MET and sum ET stay those of the
+// sound towers. A tower just below MaxTowerET is used.
+func TestHugeTowerEnergiesAreBad(t *testing.T) {
+	g := lanternGrid()
+	ev := &Event{Towers: []Tower{cellTower(g, 0, 40, 0, 1e308), cellTower(g, 0, 41, 32, 1e308), cellTower(g, 0, 42, 10, 50)},
+		GridTowers: []GridTower{{IEta: 43, IPhi: 20, ET: 2e307}}}
+	var f Features
+	ComputeFeatures(ev, FeatureConfig{Grid: g}, &f)
+	if f.Bad != 3 || f.SumET != 50 || f.MET != 50 {
+		t.Errorf("bad %d, sum ET %v, MET %v; want 3 bad towers and 50 GeV from the sound one", f.Bad, f.SumET, f.MET)
+	}
+	ev = &Event{Towers: []Tower{cellTower(g, 0, 40, 0, 0.99*MaxTowerET)}}
+	ComputeFeatures(ev, FeatureConfig{Grid: g}, &f)
+	if f.Bad != 0 || f.SumET != 0.99*MaxTowerET {
+		t.Errorf("a tower of %v GeV: bad %d, sum ET %v", 0.99*MaxTowerET, f.Bad, f.SumET)
+	}
+}
