@@ -349,10 +349,13 @@ func (a *Assembler) Run(ctx context.Context) error {
 
 // catchUp takes the batches of this share that Config.CatchUp stored from
 // CatchUpMargin before the previous builder stopped, passing over those
-// that builder had taken, until the store reaches the live batches: for
-// every source with a live batch queued, the one before its first. The
-// store's end when reading starts is no bound, as it stores a batch a
-// little after the server routes it. The live batches queued meanwhile
+// that builder had taken, until the store reaches the live batches: it
+// has given a batch that also came live (all routed before the
+// subscription precede it), and, for every source with a live batch
+// queued, the one before its first. Neither the store's end when reading
+// starts nor the sources seen live so far would do: the store keeps a
+// batch a little after the server routes it, and the sources' batches
+// interleave in any order. The live batches queued meanwhile
 // are then taken, those read from the store already passed over. A
 // failure is logged and the builder goes on with the live batches: what
 // the catch-up could not read is lost, as it would be without one.
@@ -363,6 +366,11 @@ func (a *Assembler) catchUp(ctx context.Context, in chan *nats.Msg) {
 	a.mu.Unlock()
 	var live []*nats.Msg
 	firstLive := map[uint32]uint64{} // by expected source
+	// overlap is set once the stream has given a batch that also came
+	// live: the server stores what it routes in the order it routes it,
+	// so every batch routed before the subscription lies before that one
+	// in the stream, whichever source or connection it came from.
+	overlap := false
 	n := 0
 	err := a.cfg.CatchUp.Since(ctx, a.cfg.Subjects.FragmentsOf(a.cfg.Instance), since, func(subject string, data []byte) (bool, error) {
 		for queued := true; queued; {
@@ -380,6 +388,11 @@ func (a *Assembler) catchUp(ctx context.Context, in chan *nats.Msg) {
 				queued = false
 			}
 		}
+		if src, seq, ok := batchHeader(data); ok {
+			if first, live := firstLive[src]; live && seq >= first {
+				overlap = true
+			}
+		}
 		a.mu.Lock()
 		defer a.mu.Unlock()
 		repeated := a.repeated
@@ -393,7 +406,7 @@ func (a *Assembler) catchUp(ctx context.Context, in chan *nats.Msg) {
 				a.pubErr = err
 			}
 		}
-		return !a.reachedLiveLocked(firstLive), nil
+		return !(overlap && a.reachedLiveLocked(firstLive)), nil
 	})
 	a.mu.Lock()
 	defer a.mu.Unlock()
