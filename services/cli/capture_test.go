@@ -11,7 +11,6 @@ import (
 	"time"
 
 	"github.com/bunchsieve/bunchsieve/services/recording"
-	"github.com/bunchsieve/bunchsieve/services/transport"
 )
 
 // The durable recording from end to end, as a user drives it: open the
@@ -85,12 +84,7 @@ func captureCommands(t *testing.T, url string) {
 // and returns its URL.
 func jetStreamServer(t *testing.T) string {
 	t.Helper()
-	srv, err := transport.EmbeddedWith(transport.EmbeddedOptions{Port: -1, StoreDir: t.TempDir(), MaxStore: 256 << 20})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
-	return srv.ClientURL()
+	return newJetStreamTestServer(t).url
 }
 
 // A run whose readout never ended is saved with what was stored, and the

@@ -229,20 +229,19 @@ type testServer struct {
 
 func newTestServer(t *testing.T) *testServer {
 	t.Helper()
-	srv, err := transport.Embedded("127.0.0.1", -1)
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
-	return &testServer{t: t, srv: srv, url: srv.ClientURL(), subs: func() (uint32, error) { return srv.NumSubscriptions(), nil },
-		base: srv.NumSubscriptions()}
+	return embeddedTestServer(t, transport.EmbeddedOptions{Port: -1})
 }
 
 // newJetStreamTestServer is newTestServer with JetStream on a store of
 // the test's own.
 func newJetStreamTestServer(t *testing.T) *testServer {
 	t.Helper()
-	srv, err := transport.EmbeddedWith(transport.EmbeddedOptions{Port: -1, StoreDir: t.TempDir(), MaxStore: 256 << 20})
+	return embeddedTestServer(t, transport.EmbeddedOptions{Port: -1, StoreDir: t.TempDir(), MaxStore: 256 << 20})
+}
+
+func embeddedTestServer(t *testing.T, o transport.EmbeddedOptions) *testServer {
+	t.Helper()
+	srv, err := transport.EmbeddedWith(o)
 	if err != nil {
 		t.Fatal(err)
 	}
