@@ -11,7 +11,6 @@ import (
 	"errors"
 	"io"
 	"net/http"
-	"os"
 	"os/exec"
 	"sort"
 	"sync"
@@ -20,12 +19,10 @@ import (
 	dto "github.com/prometheus/client_model/go"
 	"github.com/prometheus/common/expfmt"
 
+	"github.com/bunchsieve/bunchsieve/internal/toolcheck"
 	"github.com/bunchsieve/bunchsieve/services/runconfig"
 	"github.com/bunchsieve/bunchsieve/services/stack"
 )
-
-// requireToolsEnv turns a missing external tool from a skip into a failure.
-const requireToolsEnv = "BUNCHSIEVE_REQUIRE_TOOLS"
 
 // tool returns the path of an external program, skipping t when it is not
 // installed (failing it when BUNCHSIEVE_REQUIRE_TOOLS=1).
@@ -35,11 +32,7 @@ func tool(t *testing.T, name, pkg string) string {
 	if err == nil {
 		return p
 	}
-	msg := name + " is not on PATH (Debian package " + pkg + ")"
-	if os.Getenv(requireToolsEnv) == "1" {
-		t.Fatal(msg + "; " + requireToolsEnv + "=1 requires it")
-	}
-	t.Skip(msg + "; skipping")
+	toolcheck.Missing(t, name+" is not on PATH (Debian package "+pkg+"); skipping")
 	return ""
 }
 

@@ -37,14 +37,7 @@ func TestLoadtestCommand(t *testing.T) {
 	if p, err := os.ReadFile(profPath); err != nil || len(p) < 2 || p[0] != 0x1f || p[1] != 0x8b {
 		t.Errorf("--cpuprofile wrote %d bytes (%v), not a profile", len(p), err)
 	}
-	data, err := os.ReadFile(jsonPath)
-	if err != nil {
-		t.Fatal(err)
-	}
-	var rep loadtest.Report
-	if err := json.Unmarshal(data, &rep); err != nil {
-		t.Fatal(err)
-	}
+	rep := readLoadReport(t, jsonPath)
 	if rep.Schema != loadtest.SchemaVersion || len(rep.Steps) != 2 || rep.Baseline == nil || !strings.HasPrefix(rep.Command, "bunchsieve loadtest --dataset 1200") {
 		t.Fatalf("report: %+v", rep)
 	}
@@ -69,14 +62,7 @@ func TestLoadtestOnNATSServerProgram(t *testing.T) {
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, stderr)
 	}
-	data, err := os.ReadFile(jsonPath)
-	if err != nil {
-		t.Fatal(err)
-	}
-	var rep loadtest.Report
-	if err := json.Unmarshal(data, &rep); err != nil {
-		t.Fatal(err)
-	}
+	rep := readLoadReport(t, jsonPath)
 	if rep.Transport != "tcp "+srv.url || len(rep.Steps) != 2 || rep.Baseline == nil {
 		t.Fatalf("report: transport %q, %d steps, baseline %v", rep.Transport, len(rep.Steps), rep.Baseline)
 	}
@@ -136,4 +122,18 @@ func TestParseRates(t *testing.T) {
 	if err != nil || len(got) != 3 || got[0] != 0 || got[1] != 1500 || got[2] != 2e6 {
 		t.Fatalf("list: %v %v", got, err)
 	}
+}
+
+// readLoadReport reads the JSON report loadtest --json wrote.
+func readLoadReport(t *testing.T, path string) loadtest.Report {
+	t.Helper()
+	data, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rep loadtest.Report
+	if err := json.Unmarshal(data, &rep); err != nil {
+		t.Fatal(err)
+	}
+	return rep
 }

@@ -20,10 +20,8 @@ import (
 	"time"
 
 	"github.com/bunchsieve/bunchsieve/internal/syncbuf"
+	"github.com/bunchsieve/bunchsieve/internal/toolcheck"
 )
-
-// RequireToolsEnv turns a missing program from a skip into a failure.
-const RequireToolsEnv = "BUNCHSIEVE_REQUIRE_TOOLS"
 
 // Server is one nats-server process with JetStream on a store of its own,
 // listening on free loopback ports. Start registers its stop with
@@ -60,10 +58,7 @@ func Start(t testing.TB) *Server {
 	bin := Binary()
 	if bin == "" {
 		msg := "natsproc: no nats-server on PATH (install Debian's nats-server package, or set BUNCHSIEVE_NATS_SERVER)"
-		if os.Getenv(RequireToolsEnv) == "1" {
-			t.Fatal(msg + "; " + RequireToolsEnv + "=1 requires it")
-		}
-		t.Skip(msg)
+		toolcheck.Missing(t, msg)
 	}
 	version, err := exec.Command(bin, "--version").CombinedOutput()
 	if err != nil {

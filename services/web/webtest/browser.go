@@ -35,11 +35,8 @@ import (
 	"golang.org/x/net/websocket"
 
 	"github.com/bunchsieve/bunchsieve/internal/syncbuf"
+	"github.com/bunchsieve/bunchsieve/internal/toolcheck"
 )
-
-// RequireToolsEnv is the environment variable that turns a missing browser
-// from a skip into a failure.
-const RequireToolsEnv = "BUNCHSIEVE_REQUIRE_TOOLS"
 
 // Width and Height are the viewport of every page: a common laptop screen.
 const (
@@ -90,10 +87,7 @@ func Start(t testing.TB) *Browser {
 	bin := Binary()
 	if bin == "" {
 		msg := "webtest: no chromium on PATH (install Debian's chromium package, or set BUNCHSIEVE_CHROMIUM)"
-		if os.Getenv(RequireToolsEnv) == "1" {
-			t.Fatal(msg + "; " + RequireToolsEnv + "=1 requires it")
-		}
-		t.Skip(msg)
+		toolcheck.Missing(t, msg)
 	}
 	profile := t.TempDir()
 	args := append(append([]string{}, flags...), "--user-data-dir="+profile, "about:blank")
