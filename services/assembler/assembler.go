@@ -135,10 +135,15 @@ type Assembler struct {
 	// taking batches (set by Run).
 	lastBatch map[uint32]uint64
 	stoppedNs int64
-	// dedupe is set while batches may come twice, from the catch-up and
-	// live: a batch at or below lastBatch of its source is passed over
-	// and counted in repeated.
+	// dedupe is set while the catch-up reads the stream: a batch at or
+	// below lastBatch of its source is passed over and counted in
+	// repeated. liveUpTo then holds, per source, the highest batch taken
+	// when the reading ended: a live batch at or below it came both ways
+	// and is passed over, until one at or above it has come. A source's
+	// batches arrive live in the order sent (one connection each), so
+	// after that a lower number is a readout started again, and taken.
 	dedupe     bool
+	liveUpTo   map[uint32]uint64
 	resumeFrom *builderState
 	caughtUp   uint64
 	repeated   uint64
@@ -410,6 +415,11 @@ func (a *Assembler) catchUp(ctx context.Context, in chan *nats.Msg) {
 	})
 	a.mu.Lock()
 	defer a.mu.Unlock()
+	a.dedupe = false
+	a.liveUpTo = make(map[uint32]uint64, len(a.lastBatch))
+	for src, last := range a.lastBatch {
+		a.liveUpTo[src] = last
+	}
 	now := time.Now().UnixNano()
 	for _, m := range live {
 		a.takeLocked(m, now)
@@ -442,6 +452,23 @@ func (a *Assembler) reachedLiveLocked(firstLive map[uint32]uint64) bool {
 		}
 	}
 	return true
+}
+
+// repeatLocked reports whether batch seq of src, whose highest batch
+// taken is last (seen: any at all), was taken already; see dedupe and
+// liveUpTo. Called with a.mu held.
+func (a *Assembler) repeatLocked(src uint32, seq, last uint64, seen bool) bool {
+	if a.dedupe {
+		return seen && seq <= last
+	}
+	upTo, ok := a.liveUpTo[src]
+	if !ok {
+		return false
+	}
+	if seq >= upTo {
+		delete(a.liveUpTo, src)
+	}
+	return seq <= upTo
 }
 
 // CatchUpStats returns how many fragment batches a resumed builder took
@@ -521,7 +548,7 @@ func (a *Assembler) takeLocked(msg *nats.Msg, arrival int64) {
 	if i, ok := a.sourceIndex[batch.sourceID]; ok {
 		if a.lastBatch != nil {
 			last, seen := a.lastBatch[batch.sourceID]
-			if a.dedupe && seen && batch.sequence <= last {
+			if a.repeatLocked(batch.sourceID, batch.sequence, last, seen) {
 				// Taken already, from the catch-up or by the builder
 				// before: not offered twice.
 				batch.fail(a.pool)

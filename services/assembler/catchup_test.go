@@ -6,6 +6,9 @@ import (
 	"time"
 
 	"github.com/nats-io/nats.go/jetstream"
+	"google.golang.org/protobuf/proto"
+
+	pb "github.com/bunchsieve/bunchsieve/proto/bunchsieve/v1"
 
 	"github.com/bunchsieve/bunchsieve/services/capture"
 	"github.com/bunchsieve/bunchsieve/services/transport"
@@ -36,11 +39,41 @@ func TestRestartCatchesUpFromTheCapture(t *testing.T) {
 	// next, then the first source's batch of one crossing only, so that
 	// the other sources still have batches to read in the stream when
 	// that source has caught up.
-	t.Run("every source live", func(t *testing.T) { restartCatchesUp(t, 32*16+5) })
-	t.Run("one source live", func(t *testing.T) { restartCatchesUp(t, 30*16+1) })
+	t.Run("every source live", func(t *testing.T) { restartCatchesUp(t, 32*16+5, false) })
+	t.Run("one source live", func(t *testing.T) { restartCatchesUp(t, 30*16+1, false) })
+	// Once the live batches have passed what the stream gave, a source
+	// numbering its batches from 0 again (its readout started anew
+	// within the run) is taken, not passed over as taken already.
+	t.Run("a readout started again", func(t *testing.T) { restartCatchesUp(t, 32*16+5, true) })
 }
 
-func restartCatchesUp(t *testing.T, twice int) {
+// renumber gives the batches of source src from index from on sequence
+// numbers from 0, as a readout started again would.
+func renumber(t *testing.T, s *sourced, src uint32, from int) {
+	t.Helper()
+	var seq uint64
+	for i := from; i < len(s.batches); i++ {
+		if s.sources[i] != src {
+			continue
+		}
+		var b pb.FragmentBatch
+		if err := proto.Unmarshal(s.batches[i], &b); err != nil {
+			t.Fatal(err)
+		}
+		b.Sequence = seq
+		seq++
+		data, err := proto.Marshal(&b)
+		if err != nil {
+			t.Fatal(err)
+		}
+		s.batches[i] = data
+	}
+	if seq == 0 {
+		t.Fatalf("no batch of source %d from %d on", src, from)
+	}
+}
+
+func restartCatchesUp(t *testing.T, twice int, restarted bool) {
 	const crossings = 40
 	srv, err := transport.EmbeddedWith(transport.EmbeddedOptions{Port: -1, StoreDir: t.TempDir(), MaxStore: 256 << 20})
 	if err != nil {
@@ -72,7 +105,7 @@ func restartCatchesUp(t *testing.T, twice int) {
 	r.send(0, cut)
 	waitFor(t, "the first builder's fragments", func() bool { return first.Stats().Received == uint64(cut) })
 	stop()
-	if err := <-done; err != nil {
+	if err := ended(t, done); err != nil {
 		t.Fatal(err)
 	}
 	firstStats := first.Stats()
@@ -90,8 +123,11 @@ func restartCatchesUp(t *testing.T, twice int) {
 		t.Fatal("the second builder did not resume")
 	}
 	waitFor(t, "the catch-up", func() bool { taken, _ := second.CatchUpStats(); return taken == uint64(gap-cut+1) })
+	if restarted {
+		renumber(t, r.stream, r.stream.sources[twice], twice)
+	}
 	r.send(twice, len(r.stream.batches))
-	if err := <-done2; err != nil {
+	if err := ended(t, done2); err != nil {
 		t.Fatal(err)
 	}
 	r.checkOnceEach(firstStats, second, crossings)

@@ -77,6 +77,20 @@ func (r *restartRig) start(catchUp Backlog) (*Assembler, context.CancelFunc, cha
 	return a, cancel, done
 }
 
+// ended waits up to 20 s for a builder's Run to return, and fails the test
+// if it does not: a run that never ends is a defect to report, not to
+// wait out.
+func ended(t *testing.T, done <-chan error) error {
+	t.Helper()
+	select {
+	case err := <-done:
+		return err
+	case <-time.After(20 * time.Second):
+		t.Fatal("the builder did not end the run within 20 s")
+		return nil
+	}
+}
+
 // waitFor polls cond for up to 10 s.
 func waitFor(t *testing.T, what string, cond func() bool) {
 	t.Helper()
@@ -143,7 +157,7 @@ func TestRestartMidRunBuildsEachCrossingOnce(t *testing.T) {
 	r.send(0, cut)
 	waitFor(t, "the first builder's fragments", func() bool { return first.Stats().Received == uint64(cut) })
 	stop()
-	if err := <-done; err != nil {
+	if err := ended(t, done); err != nil {
 		t.Fatal(err)
 	}
 	if _, err := os.Stat(r.state); err != nil {
@@ -156,7 +170,7 @@ func TestRestartMidRunBuildsEachCrossingOnce(t *testing.T) {
 		t.Fatal("the second builder did not resume")
 	}
 	r.send(cut, len(r.stream.batches))
-	if err := <-done2; err != nil {
+	if err := ended(t, done2); err != nil {
 		t.Fatal(err)
 	}
 	r.checkOnceEach(firstStats, second, crossings)
