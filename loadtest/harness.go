@@ -231,7 +231,7 @@ func Run(ctx context.Context, cfg Config) (*Report, error) {
 		}
 	}
 	sort.SliceStable(rep.Steps, func(i, j int) bool { return rep.Steps[i].OfferedHz < rep.Steps[j].OfferedHz })
-	rep.Saturation = saturation(rep.Steps)
+	setSaturation(rep)
 	if runErr == nil && cfg.Half && rep.Saturation != nil && ctx.Err() == nil {
 		st, err := h.step(ctx, math.Round(rep.Saturation.OfferedHz/2), len(rep.Steps), 0)
 		if err != nil {
@@ -239,7 +239,7 @@ func Run(ctx context.Context, cfg Config) (*Report, error) {
 		} else {
 			rep.Steps = append(rep.Steps, st)
 			sort.SliceStable(rep.Steps, func(i, j int) bool { return rep.Steps[i].OfferedHz < rep.Steps[j].OfferedHz })
-			rep.Saturation = saturation(rep.Steps)
+			setSaturation(rep)
 		}
 	}
 	done()
@@ -435,6 +435,31 @@ func lossReason(a Accounting) string {
 		return "accounting does not close"
 	}
 	return strings.Join(terms, ", ")
+}
+
+// setSaturation sets rep's saturation step and, when steps below it
+// failed, FailedBelow and SteadyHz; rep.Steps are in order of rate.
+func setSaturation(rep *Report) {
+	rep.Saturation = saturation(rep.Steps)
+	rep.FailedBelow, rep.SteadyHz = nil, 0
+	if rep.Saturation == nil {
+		return
+	}
+	steady := true
+	for _, st := range rep.Steps {
+		if st.OfferedHz <= 0 || st.OfferedHz >= rep.Saturation.OfferedHz {
+			continue
+		}
+		if !st.Pass {
+			rep.FailedBelow = append(rep.FailedBelow, st.OfferedHz)
+			steady = false
+		} else if steady {
+			rep.SteadyHz = st.OfferedHz
+		}
+	}
+	if rep.FailedBelow == nil {
+		rep.SteadyHz = 0
+	}
 }
 
 // saturation returns the passing fixed-rate step of highest rate.

@@ -3,6 +3,7 @@ package loadtest
 import (
 	"context"
 	"errors"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -77,5 +78,40 @@ func TestBetterBaselinePrefersRunsWithoutDrops(t *testing.T) {
 	}
 	if !betterBaseline(fastDropped, nil) || betterBaseline(fastDropped, slow) {
 		t.Fatal("a run with drops stands only when no run without them exists")
+	}
+}
+
+// A step failing below the saturation is reported, with the highest rate
+// up to which every step passed; a sweep failing only above it, or
+// before its first pass, is not flagged.
+func TestSaturationFlagsFailuresBelowIt(t *testing.T) {
+	step := func(hz float64, pass bool) Step { return Step{OfferedHz: hz, Pass: pass} }
+	for _, tc := range []struct {
+		name   string
+		steps  []Step
+		sat    float64
+		below  []float64
+		steady float64
+	}{
+		{"monotonic", []Step{step(40, true), step(80, true), step(120, false)}, 80, nil, 0},
+		{"one dip", []Step{step(40, true), step(80, false), step(120, true), step(160, false)}, 120, []float64{80}, 40},
+		{"first failed", []Step{step(80, false), step(120, true), step(160, true)}, 160, []float64{80}, 0},
+		{"as fast as possible ignored", []Step{step(0, false), step(40, true)}, 40, nil, 0},
+		{"none passed", []Step{step(40, false)}, 0, nil, 0},
+	} {
+		rep := &Report{Steps: tc.steps}
+		setSaturation(rep)
+		var sat float64
+		if rep.Saturation != nil {
+			sat = rep.Saturation.OfferedHz
+		}
+		if sat != tc.sat || !slices.Equal(rep.FailedBelow, tc.below) || rep.SteadyHz != tc.steady {
+			t.Errorf("%s: saturation %v, failed below %v, steady %v; want %v, %v, %v", tc.name, sat, rep.FailedBelow, rep.SteadyHz, tc.sat, tc.below, tc.steady)
+		}
+		var out strings.Builder
+		rep.Print(&out)
+		if warned := strings.Contains(out.String(), "below the saturation failed"); warned != (len(tc.below) > 0) {
+			t.Errorf("%s: warning printed %v, want %v:\n%s", tc.name, warned, len(tc.below) > 0, out.String())
+		}
 	}
 }

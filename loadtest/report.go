@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"strings"
 	"text/tabwriter"
 	"time"
 
@@ -40,6 +41,14 @@ type Report struct {
 	// Saturation is the passing step of highest offered rate, nil if none
 	// passed.
 	Saturation *Step `json:"saturation"`
+	// FailedBelow lists the offered rates of the fixed-rate steps below
+	// Saturation that failed, nil if none did. A step failing below one
+	// that passed says the conditions changed while the test ran (on a
+	// shared machine, the host's speed): Saturation is then the best
+	// moment's figure, and SteadyHz, the highest passing rate with every
+	// step below it passing too, the figure to rely on.
+	FailedBelow []float64 `json:"failed_below_saturation,omitempty"`
+	SteadyHz    float64   `json:"steady_hz,omitempty"`
 	// Baseline is the offered messages through the same NATS with no
 	// processing; Relay adds the second hop the built events take.
 	Baseline *Baseline `json:"baseline,omitempty"`
@@ -304,6 +313,18 @@ func (r *Report) Print(w io.Writer) {
 				fmt.Fprintf(w, ", %.2f (2 hops)", r.RelayRatio)
 			}
 			fmt.Fprintln(w)
+		}
+		if len(r.FailedBelow) > 0 {
+			rates := make([]string, len(r.FailedBelow))
+			for i, hz := range r.FailedBelow {
+				rates[i] = fmt.Sprintf("%.0f/s", hz)
+			}
+			steady := "no step passed with every step below it passing"
+			if r.SteadyHz > 0 {
+				steady = fmt.Sprintf("every step up to %.0f/s passed", r.SteadyHz)
+			}
+			fmt.Fprintf(w, "warning: %s below the saturation failed, so the conditions changed during the test (a busy host?); %s; rerun to confirm\n",
+				strings.Join(rates, ", "), steady)
 		}
 	} else if len(r.Steps) > 0 {
 		fmt.Fprintf(w, "saturation: no offered rate passed (lossless with p99 <= %.0f ms)\n", r.P99BoundMs)
