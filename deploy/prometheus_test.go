@@ -16,6 +16,7 @@ import (
 	"time"
 
 	"github.com/bunchsieve/bunchsieve/internal/syncbuf"
+	"github.com/bunchsieve/bunchsieve/internal/toolcheck"
 	"github.com/bunchsieve/bunchsieve/services/runconfig"
 	"github.com/bunchsieve/bunchsieve/services/stack"
 	"github.com/bunchsieve/bunchsieve/services/summary"
@@ -208,6 +209,7 @@ scrape_configs:
 	cmd := exec.Command(bin, "--config.file="+cfgPath, "--storage.tsdb.path="+filepath.Join(dir, "data"),
 		"--web.listen-address="+addr, "--log.level=warn")
 	cmd.Stdout, cmd.Stderr = p.log, p.log
+	toolcheck.DieWithParent(cmd)
 	if err := cmd.Start(); err != nil {
 		t.Fatal(err)
 	}

@@ -6,6 +6,7 @@ package toolcheck
 
 import (
 	"os"
+	"strings"
 	"testing"
 )
 
@@ -14,11 +15,20 @@ import (
 const RequireEnv = "BUNCHSIEVE_REQUIRE_TOOLS"
 
 // Missing ends t for want of a program, msg saying which and how to
-// install it: a failure with RequireEnv=1, a skip otherwise.
+// install it: a failure with RequireEnv set to a true value (1, true,
+// yes), a skip otherwise. A value that is neither true nor false fails
+// too, rather than let a typing slip turn CI's failures into skips.
 func Missing(t testing.TB, msg string) {
 	t.Helper()
-	if os.Getenv(RequireEnv) == "1" {
-		t.Fatal(msg + "; " + RequireEnv + "=1 requires it")
+	v := os.Getenv(RequireEnv)
+	if v == "" {
+		t.Skip(msg)
 	}
-	t.Skip(msg)
+	switch strings.ToLower(v) {
+	case "0", "false", "no", "off":
+		t.Skip(msg)
+	case "1", "true", "yes", "on":
+		t.Fatal(msg + "; " + RequireEnv + "=" + v + " requires it")
+	}
+	t.Fatalf("%s; %s=%q is neither true (1, true, yes, on) nor false (0, false, no, off)", msg, RequireEnv, v)
 }

@@ -10,12 +10,15 @@ package natsproc
 
 import (
 	"encoding/json"
+	"errors"
 	"fmt"
 	"net/http"
 	"os"
 	"os/exec"
 	"path/filepath"
+	"strconv"
 	"strings"
+	"syscall"
 	"testing"
 	"time"
 
@@ -64,11 +67,12 @@ func Start(t testing.TB) *Server {
 	if err != nil {
 		t.Fatalf("natsproc: %s --version: %v: %s", bin, err, version)
 	}
-	dir := t.TempDir()
+	dir := storeDir(t)
 	// Port -1 lets the server pick free ports; it writes them into the
 	// ports file, so no port is guessed and raced for.
 	cmd := exec.Command(bin, "-a", "127.0.0.1", "-p", "-1", "-m", "-1",
 		"-js", "-sd", filepath.Join(dir, "jetstream"), "--ports_file_dir", dir)
+	toolcheck.DieWithParent(cmd)
 	s := &Server{Version: strings.TrimSpace(string(version)), cmd: cmd, log: &syncbuf.Buffer{Limit: 1 << 20}, done: make(chan struct{})}
 	cmd.Stdout, cmd.Stderr = s.log, s.log
 	if err := cmd.Start(); err != nil {
@@ -77,14 +81,22 @@ func Start(t testing.TB) *Server {
 	go func() { _ = cmd.Wait(); close(s.done) }()
 	t.Cleanup(s.stop)
 
-	portsFile := filepath.Join(dir, fmt.Sprintf("%s_%d.ports", filepath.Base(bin), cmd.Process.Pid))
+	// The server names its ports file after its own program name and pid,
+	// which a wrapper script in BUNCHSIEVE_NATS_SERVER would not share:
+	// the folder is this server's alone, so any ports file in it will do.
+	portsGlob := filepath.Join(dir, "*.ports")
 	deadline := time.Now().Add(10 * time.Second)
 	for {
 		var ports struct {
 			Nats       []string `json:"nats"`
 			Monitoring []string `json:"monitoring"`
 		}
-		data, err := os.ReadFile(portsFile)
+		found, _ := filepath.Glob(portsGlob)
+		var data []byte
+		err := os.ErrNotExist
+		if len(found) == 1 {
+			data, err = os.ReadFile(found[0])
+		}
 		if err == nil && json.Unmarshal(data, &ports) == nil && len(ports.Nats) > 0 && len(ports.Monitoring) > 0 {
 			s.URL, s.Monitor = ports.Nats[0], ports.Monitoring[0]
 			break
@@ -95,14 +107,14 @@ func Start(t testing.TB) *Server {
 		default:
 		}
 		if time.Now().After(deadline) {
-			t.Fatalf("natsproc: %s wrote no ports file %s within 10 s: %s", bin, portsFile, s.log.String())
+			t.Fatalf("natsproc: %s wrote no ports file in %s within 10 s: %s", bin, dir, s.log.String())
 		}
 		time.Sleep(10 * time.Millisecond)
 	}
 	// The ports are written before JetStream is up; /healthz answers 200
 	// once the server, JetStream included, is ready for clients.
 	for {
-		resp, err := http.Get(s.Monitor + "/healthz")
+		resp, err := monitorClient.Get(s.Monitor + "/healthz")
 		if err == nil {
 			resp.Body.Close()
 			if resp.StatusCode == http.StatusOK {
@@ -116,10 +128,48 @@ func Start(t testing.TB) *Server {
 	}
 }
 
+// monitorClient bounds each request to the monitoring port, so that a
+// port that takes the connection and never answers cannot hold Start past
+// its deadline.
+var monitorClient = &http.Client{Timeout: 2 * time.Second}
+
+// storePrefix begins the name of every server's folder (ports file and
+// JetStream store), followed by the test process's pid.
+const storePrefix = "bunchsieve-natsproc-"
+
+// storeDir makes a folder for one server, removed when t ends. A test
+// process stopped by -timeout runs no cleanup, so Start also removes the
+// folders of test processes that are no longer running.
+func storeDir(t testing.TB) string {
+	t.Helper()
+	old, _ := filepath.Glob(filepath.Join(os.TempDir(), storePrefix+"*"))
+	for _, d := range old {
+		pid, _, ok := strings.Cut(strings.TrimPrefix(filepath.Base(d), storePrefix), "-")
+		if n, err := strconv.Atoi(pid); ok && err == nil && !running(n) {
+			_ = os.RemoveAll(d)
+		}
+	}
+	dir, err := os.MkdirTemp("", fmt.Sprintf("%s%d-", storePrefix, os.Getpid()))
+	if err != nil {
+		t.Fatalf("natsproc: %v", err)
+	}
+	t.Cleanup(func() { _ = os.RemoveAll(dir) })
+	return dir
+}
+
+// running reports whether a process of that pid exists.
+func running(pid int) bool {
+	p, err := os.FindProcess(pid)
+	if err != nil {
+		return false
+	}
+	return !errors.Is(p.Signal(syscall.Signal(0)), os.ErrProcessDone)
+}
+
 // Subscriptions returns the number of subscriptions the server holds, from
 // its /varz monitoring page.
 func (s *Server) Subscriptions() (uint32, error) {
-	resp, err := http.Get(s.Monitor + "/varz")
+	resp, err := monitorClient.Get(s.Monitor + "/varz")
 	if err != nil {
 		return 0, fmt.Errorf("natsproc: %w", err)
 	}

@@ -96,6 +96,7 @@ func Start(t testing.TB) *Browser {
 	cmd.Stdout = b.stderr
 	cmd.Stderr = b.stderr
 	setGroup(cmd)
+	toolcheck.DieWithParent(cmd)
 	if err := cmd.Start(); err != nil {
 		t.Fatalf("webtest: start %s: %v", bin, err)
 	}
