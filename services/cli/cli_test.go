@@ -186,7 +186,7 @@ func TestBadInputGivesOneLineError(t *testing.T) {
 		{[]string{"readout", "--nats", "nats://127.0.0.1:1", "--crossings", "10"}, "127.0.0.1:1"},
 		{[]string{"build", "--instance", "2", "--builders", "2"}, "--instance"},
 		{[]string{"readout", "--replay", "x.bss", "--rate", "5000", "--speed", "2"}, "give one"},
-		{[]string{"readout", "--replay", "x.bss", "--rate", "0"}, "--rate with --replay"},
+		{[]string{"readout", "--replay", "x.bss", "--rate", "-5"}, "--rate -5"},
 		{[]string{"build", "--catch-up"}, "--catch-up needs --state"},
 		{[]string{"build", "--state", state, "--catch-up-stream", "x"}, "--catch-up-stream without --catch-up"},
 		{[]string{"build", "--nats", js, "--state", state, "--catch-up"}, "no stream bunchsieve_fragments"},
@@ -274,7 +274,7 @@ func (s *testServer) awaitSubscriptions(n uint32, who string) {
 			return
 		}
 		if time.Now().After(deadline) {
-			s.t.Fatalf("%s did not subscribe (%d of %d subscriptions, %v)", who, have-s.base, n, err)
+			s.t.Fatalf("%s did not subscribe (the server holds %d subscriptions, %d before it started, want %d more; %v)", who, have, s.base, n, err)
 		}
 		time.Sleep(5 * time.Millisecond)
 	}

@@ -109,12 +109,11 @@ func runReadout(ctx context.Context, e *env, args []string) error {
 		}
 		var pace emulator.Pace
 		switch {
-		case set["rate"] && set["speed"]:
+		case set["rate"] && set["speed"] && *speed != "max":
 			return usagef("--rate and --speed both pace a replay; give one")
 		case set["rate"]:
-			if !(cfg.RateHz > 0) {
-				return usagef("--rate with --replay: want a positive number of crossings per second (without --rate the replay goes as fast as possible)")
-			}
+			// 0 is as fast as possible, as for a generated stream;
+			// resolve has refused negative, NaN and infinite rates.
 			pace.RateHz = cfg.RateHz
 		case *speed != "max":
 			pace.Speed, err = strconv.ParseFloat(*speed, 64)

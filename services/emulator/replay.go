@@ -27,6 +27,20 @@ type ReplayStats struct {
 // sentField is the FragmentBatch field number of sent_unix_ns.
 const sentField = 4
 
+// nanos converts ns nanoseconds to a Duration, saturating: a wait beyond
+// the int64 range (a tiny rate or speed over a long stream) is the
+// longest Duration, not a wrapped-around negative one that would make
+// every batch due at once.
+func nanos(ns float64) time.Duration {
+	switch {
+	case ns >= math.MaxInt64:
+		return math.MaxInt64
+	case ns > 0:
+		return time.Duration(ns)
+	}
+	return 0
+}
+
 // Pace says how fast Replay sends; the zero value sends as fast as
 // possible.
 type Pace struct {
@@ -91,10 +105,10 @@ func Replay(ctx context.Context, r *recording.Reader, sink Sink, pace Pace) (Rep
 		case ord != nil:
 			n := ord.of(b.FirstTimestampNs)
 			if n > ord0 {
-				due = start.Add(time.Duration(float64(n-ord0) / pace.RateHz * float64(time.Second)))
+				due = start.Add(nanos(float64(n-ord0) / pace.RateHz * float64(time.Second)))
 			}
 		case pace.Speed > 0:
-			due = start.Add(time.Duration(float64(b.FirstTimestampNs-t0) / pace.Speed))
+			due = start.Add(nanos(float64(b.FirstTimestampNs-t0) / pace.Speed))
 		}
 		if wait := time.Until(due); !due.IsZero() && wait > 0 {
 			t := time.NewTimer(wait)

@@ -2,6 +2,7 @@ package emulator
 
 import (
 	"context"
+	"errors"
 	"sync"
 	"testing"
 	"time"
@@ -86,5 +87,33 @@ func TestReplayAtARateSendsNothingEarly(t *testing.T) {
 	// The emulator's batches hold 32 crossings: the last start at 1984.
 	if last != 1984 {
 		t.Errorf("the last batch starts at crossing %d, want 1984", last)
+	}
+}
+
+// A rate so low that the waits overflow int64 nanoseconds still waits: the
+// first crossing's batches (one per source) go at once, the next
+// crossing's not before the replay is stopped (a wrapped-around wait once
+// sent every batch at once).
+func TestReplayAtATinyRateWaits(t *testing.T) {
+	for _, pace := range []Pace{{RateHz: 1e-9}, {Speed: 1e-12}} {
+		path := recordSample(t, 2000)
+		r, err := recording.Open(path)
+		if err != nil {
+			t.Fatal(err)
+		}
+		ctx, cancel := context.WithTimeout(context.Background(), 100*time.Millisecond)
+		sink := &timedSink{zero: time.Now()}
+		_, err = Replay(ctx, r, sink, pace)
+		cancel()
+		r.Close()
+		if !errors.Is(err, context.DeadlineExceeded) || len(sink.at) == 0 {
+			t.Fatalf("%+v: %d batches sent, %v; want the first crossing's, then a wait cut short", pace, len(sink.at), err)
+		}
+		for i, ts := range sink.ts {
+			if ts != sink.ts[0] {
+				t.Errorf("%+v: batch %d, of a later crossing (timestamp %d after %d), sent before the stop", pace, i, ts, sink.ts[0])
+				break
+			}
+		}
 	}
 }
