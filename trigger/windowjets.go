@@ -30,10 +30,13 @@ type WindowConfig struct {
 //   - its central cell has E_T >= Seed (and > 0), and
 //   - it beats the 8 windows centred on the neighbouring cells, ordered by
 //     E_T sum, then by the E_T of the central cell, then by the lower cell
-//     index ieta*PhiBins+iphi. That is a strict order, so of two
-//     overlapping windows with the same sum at most one becomes a jet (no
-//     double counting), and an isolated tower, which all 9 windows around
-//     it see, makes one jet centred on itself.
+//     index ieta*PhiBins+iphi. That is a strict order, so of two windows
+//     centred on neighbouring cells (the 8 around) at most one becomes a
+//     jet, and an isolated tower, which all 9 windows around it see, makes
+//     one jet centred on itself. Windows centred two cells apart overlap
+//     and may both be jets: the cells they share (a row or column of
+//     three straight across, two at a knight's offset, one corner on a
+//     diagonal) count in both, and in HT twice.
 //
 // Jet E_T is the window sum; eta and phi are the E_T-weighted centroid of
 // the cell centres (phi measured from the central cell, so the centroid is

@@ -2,6 +2,7 @@ package trigger
 
 import (
 	"math"
+	"slices"
 	"testing"
 )
 
@@ -172,4 +173,42 @@ func TestWindowFinderConformance(t *testing.T) {
 		t.Fatal(err)
 	}
 	checkAlgorithm(t, w, lanternGrid())
+}
+
+// The two limits the docs state, worked by hand on one row of cells in
+// phi at ieta 40 (every other cell empty):
+//   - 50, 3, 50 GeV, seed 5: the window on the 3 GeV cell is below seed and
+//     competes with nobody; the windows on the 50s sum 53 each and both are
+//     jets, the 3 GeV cell in each: HT 106 from 103 GeV deposited.
+//   - 20, 15, 10, 30 GeV, seed 10: window sums 35, 45, 55, 40 (each cell
+//     and its two neighbours); only the one on the 10 GeV cell beats both
+//     its neighbours, one jet of 15 + 10 + 30 = 55, and the 20 GeV cell is
+//     in no jet.
+func TestWindowJetsShareCellsAndMissCells(t *testing.T) {
+	g := lanternGrid()
+	for _, c := range []struct {
+		name    string
+		cells   []float64
+		seed    float64
+		wantETs []float64
+		wantHT  float64
+	}{
+		{"a shared cell", []float64{50, 3, 50}, 5, []float64{53, 53}, 106},
+		{"a cell in no jet", []float64{20, 15, 10, 30}, 10, []float64{55}, 55},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			var towers []Tower
+			for i, et := range c.cells {
+				towers = append(towers, cellTower(g, 0, 40, 10+i, et))
+			}
+			jets, ht := findJets(t, WindowConfig{Seed: c.seed}, towers...)
+			var ets []float64
+			for i := 0; i < jets.Len(); i++ {
+				ets = append(ets, jets.At(i, 0))
+			}
+			if !slices.Equal(ets, c.wantETs) || ht != c.wantHT {
+				t.Errorf("jet E_T %v, HT %v; want %v, %v", ets, ht, c.wantETs, c.wantHT)
+			}
+		})
+	}
 }
