@@ -134,6 +134,7 @@ type Assembler struct {
 	// source (builderState.LastBatch), and when the builder stopped
 	// taking batches (set by Run).
 	lastBatch map[uint32]uint64
+	lastSent  map[uint32]int64
 	stoppedNs int64
 	// dedupe is set while the catch-up reads the stream: a batch at or
 	// below lastBatch of its source is passed over and counted in
@@ -142,6 +143,8 @@ type Assembler struct {
 	// and is passed over, until one at or above it has come. A source's
 	// batches arrive live in the order sent (one connection each), so
 	// after that a lower number is a readout started again, and taken.
+	// A batch sent after every batch of its source taken (lastSent) is
+	// new in either mode: a readout started again while none ran.
 	dedupe     bool
 	liveUpTo   map[uint32]uint64
 	resumeFrom *builderState
@@ -221,10 +224,13 @@ func New(cfg Config, nc *nats.Conn, reg prometheus.Registerer) (*Assembler, erro
 			}
 			a.b.Resume(st.ClosedNs)
 			a.seq, a.emitted, a.resumed, a.resumeFrom = st.Seq, st.Emitted, true, st
-			a.lastBatch = st.LastBatch
+			a.lastBatch, a.lastSent = st.LastBatch, st.LastSent
 		}
 		if a.lastBatch == nil {
 			a.lastBatch = make(map[uint32]uint64, len(cfg.Builder.Sources))
+		}
+		if a.lastSent == nil {
+			a.lastSent = make(map[uint32]int64, len(cfg.Builder.Sources))
 		}
 	}
 	if cfg.CatchUpMargin == 0 {
@@ -334,7 +340,7 @@ func (a *Assembler) Run(ctx context.Context) error {
 			return fmt.Errorf("assembler: flush: %w", err)
 		}
 		st := builderState{Run: a.cfg.Builder.Run, Instance: a.cfg.Instance, Instances: a.cfg.Instances,
-			ClosedNs: a.b.Stats().ClosedNs, Seq: a.seq, Emitted: a.emitted, StoppedUnixNs: a.stoppedNs, LastBatch: a.lastBatch}
+			ClosedNs: a.b.Stats().ClosedNs, Seq: a.seq, Emitted: a.emitted, StoppedUnixNs: a.stoppedNs, LastBatch: a.lastBatch, LastSent: a.lastSent}
 		return errors.Join(a.pubErr, writeState(a.cfg.StateFile, st))
 	}
 	if err := a.publishLocked(true); err != nil {
@@ -454,21 +460,32 @@ func (a *Assembler) reachedLiveLocked(firstLive map[uint32]uint64) bool {
 	return true
 }
 
-// repeatLocked reports whether batch seq of src, whose highest batch
-// taken is last (seen: any at all), was taken already; see dedupe and
-// liveUpTo. Called with a.mu held.
-func (a *Assembler) repeatLocked(src uint32, seq, last uint64, seen bool) bool {
+// repeatLocked reports whether batch seq of src, sent at sent (Unix ns,
+// 0 if not stamped), was taken already, given the highest batch taken of
+// src, last (seen: any at all); see dedupe and liveUpTo. A batch numbered
+// at or below last but sent after every batch of src taken is from a
+// readout started again (numbering from 0) and is new, whether it comes
+// from the stream or live: restarted reports that, and the source's
+// numbering starts over. Without send times the sequence numbers alone
+// decide. Called with a.mu held.
+func (a *Assembler) repeatLocked(src uint32, seq, last uint64, seen bool, sent int64) (repeat, restarted bool) {
+	if seen && seq <= last && sent > 0 {
+		if prev := a.lastSent[src]; prev > 0 && sent > prev {
+			delete(a.liveUpTo, src)
+			return false, true
+		}
+	}
 	if a.dedupe {
-		return seen && seq <= last
+		return seen && seq <= last, false
 	}
 	upTo, ok := a.liveUpTo[src]
 	if !ok {
-		return false
+		return false, false
 	}
 	if seq >= upTo {
 		delete(a.liveUpTo, src)
 	}
-	return seq <= upTo
+	return seq <= upTo, false
 }
 
 // CatchUpStats returns how many fragment batches a resumed builder took
@@ -548,7 +565,8 @@ func (a *Assembler) takeLocked(msg *nats.Msg, arrival int64) {
 	if i, ok := a.sourceIndex[batch.sourceID]; ok {
 		if a.lastBatch != nil {
 			last, seen := a.lastBatch[batch.sourceID]
-			if a.repeatLocked(batch.sourceID, batch.sequence, last, seen) {
+			repeat, restarted := a.repeatLocked(batch.sourceID, batch.sequence, last, seen, batch.sentUnixNs)
+			if repeat {
 				// Taken already, from the catch-up or by the builder
 				// before: not offered twice.
 				batch.fail(a.pool)
@@ -556,8 +574,11 @@ func (a *Assembler) takeLocked(msg *nats.Msg, arrival int64) {
 				a.m.repeated.Inc()
 				return
 			}
-			if !seen || batch.sequence > last {
+			if restarted || !seen || batch.sequence > last {
 				a.lastBatch[batch.sourceID] = batch.sequence
+			}
+			if batch.sentUnixNs > a.lastSent[batch.sourceID] {
+				a.lastSent[batch.sourceID] = batch.sentUnixNs
 			}
 		}
 		a.bytesIn[i] += uint64(len(msg.Data))

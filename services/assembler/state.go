@@ -30,6 +30,11 @@ type builderState struct {
 	// source, so that a batch read from the capture stream and again
 	// live is taken once.
 	LastBatch map[uint32]uint64 `json:"last_batch_by_source,omitempty"`
+	// LastSent is, per source, the latest send time (Unix ns, the
+	// readout's clock) of a batch taken: a batch numbered at or below
+	// LastBatch but sent after it is from a readout started again, not
+	// a repeat. Absent in files written before it was kept.
+	LastSent map[uint32]int64 `json:"last_sent_unix_ns_by_source,omitempty"`
 }
 
 // readState reads a state file; nil, nil when there is none.

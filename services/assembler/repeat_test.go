@@ -1,0 +1,74 @@
+package assembler
+
+import "testing"
+
+// A readout that ended or crashed while no builder ran, and was started
+// again, numbers its batches from 0 once more. Its batches at or below
+// the highest number taken before are new, not repeats: they were sent
+// after every batch of that source taken so far. A batch that came both
+// from the stream and live carries the same send time as the copy taken,
+// and is passed over.
+func TestRepeatTellsARestartedReadoutFromARepeat(t *testing.T) {
+	const src = 7
+	for _, mode := range []struct {
+		name   string
+		dedupe bool
+	}{{"live, after the catch-up", false}, {"reading the stream", true}} {
+		t.Run(mode.name, func(t *testing.T) {
+			a := &Assembler{
+				dedupe:    mode.dedupe,
+				lastBatch: map[uint32]uint64{src: 5},
+				lastSent:  map[uint32]int64{src: 5_000},
+			}
+			if !mode.dedupe {
+				a.liveUpTo = map[uint32]uint64{src: 5}
+			}
+			// Batches 3 to 5 of the first readout, again: repeats.
+			for seq := uint64(3); seq <= 5; seq++ {
+				last, seen := a.lastBatch[src]
+				if rep, _ := a.repeatLocked(src, seq, last, seen, int64(seq)*1_000); !rep {
+					t.Errorf("batch %d sent again with its first send time was taken twice", seq)
+				}
+			}
+			// The readout started again: batches 0 to 7, sent later.
+			for seq := uint64(0); seq <= 7; seq++ {
+				last, seen := a.lastBatch[src]
+				sent := 10_000 + int64(seq)*1_000
+				rep, restarted := a.repeatLocked(src, seq, last, seen, sent)
+				if rep {
+					t.Fatalf("batch %d of the readout started again was passed over as a repeat", seq)
+				}
+				if want := seq == 0; restarted != want {
+					t.Errorf("batch %d: restarted = %v, want %v", seq, restarted, want)
+				}
+				// What takeLocked records for a batch taken.
+				if restarted || !seen || seq > last {
+					a.lastBatch[src] = seq
+				}
+				a.lastSent[src] = sent
+			}
+			// Reading the stream, a repeat of the new readout's batch 2
+			// is passed over. (Live, once past the stream, every batch
+			// comes once: NATS core does not deliver twice.)
+			last, seen := a.lastBatch[src]
+			if rep, _ := a.repeatLocked(src, 2, last, seen, 12_000); mode.dedupe && !rep {
+				t.Error("a repeat of the new readout's batch 2 was taken twice")
+			}
+		})
+	}
+}
+
+// Without send times (batches not stamped, or a state file written
+// before they were kept) the sequence numbers alone decide, as before.
+func TestRepeatWithoutSendTimes(t *testing.T) {
+	a := &Assembler{lastBatch: map[uint32]uint64{1: 5}, lastSent: map[uint32]int64{}, liveUpTo: map[uint32]uint64{1: 5}}
+	if rep, _ := a.repeatLocked(1, 4, 5, true, 0); !rep {
+		t.Error("batch 4 below the stream's highest, before any live batch passed it, was taken")
+	}
+	if rep, _ := a.repeatLocked(1, 6, 5, true, 0); rep {
+		t.Error("batch 6 past the stream's highest was passed over")
+	}
+	if rep, _ := a.repeatLocked(1, 0, 6, true, 0); rep {
+		t.Error("batch 0 after the live batches passed the stream's was passed over")
+	}
+}
