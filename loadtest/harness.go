@@ -441,25 +441,31 @@ func lossReason(a Accounting) string {
 // failed, FailedBelow and SteadyHz; rep.Steps are in order of rate.
 func setSaturation(rep *Report) {
 	rep.Saturation = saturation(rep.Steps)
-	rep.FailedBelow, rep.SteadyHz = nil, 0
+	rep.FailedBelow, rep.SteadyHz = nil, nil
 	if rep.Saturation == nil {
 		return
 	}
-	steady := true
+	// A failed step at the saturation's own rate (a refine or half-rate
+	// step landing on a rate run already) counts too: that rate both
+	// passed and failed.
+	lowestFailed := math.Inf(1)
 	for _, st := range rep.Steps {
-		if st.OfferedHz <= 0 || st.OfferedHz >= rep.Saturation.OfferedHz {
+		if st.OfferedHz <= 0 || st.OfferedHz > rep.Saturation.OfferedHz || st.Pass {
 			continue
 		}
-		if !st.Pass {
-			rep.FailedBelow = append(rep.FailedBelow, st.OfferedHz)
-			steady = false
-		} else if steady {
-			rep.SteadyHz = st.OfferedHz
-		}
+		rep.FailedBelow = append(rep.FailedBelow, st.OfferedHz)
+		lowestFailed = min(lowestFailed, st.OfferedHz)
 	}
 	if rep.FailedBelow == nil {
-		rep.SteadyHz = 0
+		return
 	}
+	steady := 0.0
+	for _, st := range rep.Steps {
+		if st.Pass && st.OfferedHz > 0 && st.OfferedHz < lowestFailed {
+			steady = max(steady, st.OfferedHz)
+		}
+	}
+	rep.SteadyHz = &steady
 }
 
 // saturation returns the passing fixed-rate step of highest rate.

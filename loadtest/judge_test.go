@@ -2,6 +2,7 @@ package loadtest
 
 import (
 	"context"
+	"encoding/json"
 	"errors"
 	"slices"
 	"strings"
@@ -81,9 +82,9 @@ func TestBetterBaselinePrefersRunsWithoutDrops(t *testing.T) {
 	}
 }
 
-// A step failing below the saturation is reported, with the highest rate
-// up to which every step passed; a sweep failing only above it, or
-// before its first pass, is not flagged.
+// A step failing at or below the saturation's rate is reported, with the
+// highest rate up to which every step passed (steady, -1: not reported);
+// a sweep failing only above it is not flagged.
 func TestSaturationFlagsFailuresBelowIt(t *testing.T) {
 	step := func(hz float64, pass bool) Step { return Step{OfferedHz: hz, Pass: pass} }
 	for _, tc := range []struct {
@@ -93,11 +94,14 @@ func TestSaturationFlagsFailuresBelowIt(t *testing.T) {
 		below  []float64
 		steady float64
 	}{
-		{"monotonic", []Step{step(40, true), step(80, true), step(120, false)}, 80, nil, 0},
+		{"monotonic", []Step{step(40, true), step(80, true), step(120, false)}, 80, nil, -1},
 		{"one dip", []Step{step(40, true), step(80, false), step(120, true), step(160, false)}, 120, []float64{80}, 40},
 		{"first failed", []Step{step(80, false), step(120, true), step(160, true)}, 160, []float64{80}, 0},
-		{"as fast as possible ignored", []Step{step(0, false), step(40, true)}, 40, nil, 0},
-		{"none passed", []Step{step(40, false)}, 0, nil, 0},
+		{"as fast as possible ignored", []Step{step(0, false), step(40, true)}, 40, nil, -1},
+		{"none passed", []Step{step(40, false)}, 0, nil, -1},
+		// A refine or half-rate step run again at the saturation's rate.
+		{"saturation rate failed once", []Step{step(100, true), step(200, false), step(200, true)}, 200, []float64{200}, 100},
+		{"saturation rate failed, passing first", []Step{step(100, true), step(200, true), step(200, false)}, 200, []float64{200}, 100},
 	} {
 		rep := &Report{Steps: tc.steps}
 		setSaturation(rep)
@@ -105,8 +109,21 @@ func TestSaturationFlagsFailuresBelowIt(t *testing.T) {
 		if rep.Saturation != nil {
 			sat = rep.Saturation.OfferedHz
 		}
-		if sat != tc.sat || !slices.Equal(rep.FailedBelow, tc.below) || rep.SteadyHz != tc.steady {
-			t.Errorf("%s: saturation %v, failed below %v, steady %v; want %v, %v, %v", tc.name, sat, rep.FailedBelow, rep.SteadyHz, tc.sat, tc.below, tc.steady)
+		steady := -1.0
+		if rep.SteadyHz != nil {
+			steady = *rep.SteadyHz
+		}
+		if sat != tc.sat || !slices.Equal(rep.FailedBelow, tc.below) || steady != tc.steady {
+			t.Errorf("%s: saturation %v, failed below %v, steady %v; want %v, %v, %v", tc.name, sat, rep.FailedBelow, steady, tc.sat, tc.below, tc.steady)
+		}
+		// The JSON says steady_hz whenever a step failed below, 0
+		// included, and leaves it out otherwise.
+		js, err := json.Marshal(rep)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if has := strings.Contains(string(js), `"steady_hz":`); has != (tc.steady >= 0) {
+			t.Errorf("%s: steady_hz in the JSON %v, want %v", tc.name, has, tc.steady >= 0)
 		}
 		var out strings.Builder
 		rep.Print(&out)

@@ -41,14 +41,16 @@ type Report struct {
 	// Saturation is the passing step of highest offered rate, nil if none
 	// passed.
 	Saturation *Step `json:"saturation"`
-	// FailedBelow lists the offered rates of the fixed-rate steps below
-	// Saturation that failed, nil if none did. A step failing below one
+	// FailedBelow lists the offered rates of the fixed-rate steps at or
+	// below Saturation's rate that failed, nil if none did. A step failing below one
 	// that passed says the conditions changed while the test ran (on a
 	// shared machine, the host's speed): Saturation is then the best
 	// moment's figure, and SteadyHz, the highest passing rate with every
-	// step below it passing too, the figure to rely on.
+	// step up to it passing too (0 if none), the figure to rely on; nil
+	// when FailedBelow is, so that the JSON tells "none" from "not
+	// needed".
 	FailedBelow []float64 `json:"failed_below_saturation,omitempty"`
-	SteadyHz    float64   `json:"steady_hz,omitempty"`
+	SteadyHz    *float64  `json:"steady_hz,omitempty"`
 	// Baseline is the offered messages through the same NATS with no
 	// processing; Relay adds the second hop the built events take.
 	Baseline *Baseline `json:"baseline,omitempty"`
@@ -320,10 +322,10 @@ func (r *Report) Print(w io.Writer) {
 				rates[i] = fmt.Sprintf("%.0f/s", hz)
 			}
 			steady := "no step passed with every step below it passing"
-			if r.SteadyHz > 0 {
-				steady = fmt.Sprintf("every step up to %.0f/s passed", r.SteadyHz)
+			if r.SteadyHz != nil && *r.SteadyHz > 0 {
+				steady = fmt.Sprintf("every step up to %.0f/s passed", *r.SteadyHz)
 			}
-			fmt.Fprintf(w, "warning: %s below the saturation failed, so the conditions changed during the test (a busy host?); %s; rerun to confirm\n",
+			fmt.Fprintf(w, "warning: %s at or below the saturation failed, so the conditions changed during the test (a busy host?); %s; rerun to confirm\n",
 				strings.Join(rates, ", "), steady)
 		}
 	} else if len(r.Steps) > 0 {
