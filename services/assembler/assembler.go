@@ -488,6 +488,32 @@ func (a *Assembler) repeatLocked(src uint32, seq, last uint64, seen bool, sent i
 	return seq <= upTo, false
 }
 
+// repeatedLocked reports whether batch was taken already and, if not,
+// records it in lastBatch and lastSent. An end-of-run marker with no
+// fragments is never a repeat and leaves the numbering alone: a marker
+// taken twice ends the source once, and the marker a replay sends for a
+// damaged stream carries no sequence number (0) and a fresh send time,
+// which would otherwise read as a readout started again. Called with
+// a.mu held.
+func (a *Assembler) repeatedLocked(batch *wireBatch) bool {
+	if batch.endOfRun && len(batch.frags) == 0 && batch.undecodable == 0 {
+		return false
+	}
+	src := batch.sourceID
+	last, seen := a.lastBatch[src]
+	repeat, restarted := a.repeatLocked(src, batch.sequence, last, seen, batch.sentUnixNs)
+	if repeat {
+		return true
+	}
+	if restarted || !seen || batch.sequence > last {
+		a.lastBatch[src] = batch.sequence
+	}
+	if batch.sentUnixNs > a.lastSent[src] {
+		a.lastSent[src] = batch.sentUnixNs
+	}
+	return false
+}
+
 // CatchUpStats returns how many fragment batches a resumed builder took
 // from the capture stream (Config.CatchUp) and how many it passed over
 // as taken already. It is safe for concurrent use.
@@ -563,23 +589,13 @@ func (a *Assembler) takeLocked(msg *nats.Msg, arrival int64) {
 		return
 	}
 	if i, ok := a.sourceIndex[batch.sourceID]; ok {
-		if a.lastBatch != nil {
-			last, seen := a.lastBatch[batch.sourceID]
-			repeat, restarted := a.repeatLocked(batch.sourceID, batch.sequence, last, seen, batch.sentUnixNs)
-			if repeat {
-				// Taken already, from the catch-up or by the builder
-				// before: not offered twice.
-				batch.fail(a.pool)
-				a.repeated++
-				a.m.repeated.Inc()
-				return
-			}
-			if restarted || !seen || batch.sequence > last {
-				a.lastBatch[batch.sourceID] = batch.sequence
-			}
-			if batch.sentUnixNs > a.lastSent[batch.sourceID] {
-				a.lastSent[batch.sourceID] = batch.sentUnixNs
-			}
+		if a.lastBatch != nil && a.repeatedLocked(batch) {
+			// Taken already, from the catch-up or by the builder
+			// before: not offered twice.
+			batch.fail(a.pool)
+			a.repeated++
+			a.m.repeated.Inc()
+			return
 		}
 		a.bytesIn[i] += uint64(len(msg.Data))
 	}

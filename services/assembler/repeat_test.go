@@ -72,3 +72,32 @@ func TestRepeatWithoutSendTimes(t *testing.T) {
 		t.Error("batch 0 after the live batches passed the stream's was passed over")
 	}
 }
+
+// The end-of-run marker a replay sends for a damaged stream has sequence
+// number 0 and a fresh send time. It must not read as a readout started
+// again: the numbering would restart at 0, and after a resume the
+// batches read again from the stream would be taken twice.
+func TestEndMarkerLeavesTheNumberingAlone(t *testing.T) {
+	const src = 3
+	a := &Assembler{lastBatch: map[uint32]uint64{}, lastSent: map[uint32]int64{}}
+	for seq := uint64(0); seq <= 100; seq++ {
+		b := &wireBatch{sourceID: src, sequence: seq, sentUnixNs: 1_000 + int64(seq), frags: make([]*heldFragment, 1)}
+		if a.repeatedLocked(b) {
+			t.Fatalf("batch %d, first time, passed over", seq)
+		}
+	}
+	if a.repeatedLocked(&wireBatch{sourceID: src, endOfRun: true, sentUnixNs: 2_000}) {
+		t.Fatal("the end-of-run marker was passed over")
+	}
+	if a.lastBatch[src] != 100 || a.lastSent[src] != 1_100 {
+		t.Fatalf("after the marker: last batch %d sent %d, want 100 and 1100", a.lastBatch[src], a.lastSent[src])
+	}
+	// A resumed builder reads the stream again from a little before.
+	a.dedupe = true
+	for seq := uint64(95); seq <= 100; seq++ {
+		b := &wireBatch{sourceID: src, sequence: seq, sentUnixNs: 1_000 + int64(seq), frags: make([]*heldFragment, 1)}
+		if !a.repeatedLocked(b) {
+			t.Errorf("batch %d read again from the stream was taken twice", seq)
+		}
+	}
+}
