@@ -21,11 +21,8 @@ const RequireEnv = "BUNCHSIEVE_REQUIRE_TOOLS"
 func Missing(t testing.TB, msg string) {
 	t.Helper()
 	v := os.Getenv(RequireEnv)
-	if v == "" {
-		t.Skip(msg)
-	}
 	switch strings.ToLower(v) {
-	case "0", "false", "no", "off":
+	case "", "0", "false", "no", "off":
 		t.Skip(msg)
 	case "1", "true", "yes", "on":
 		t.Fatal(msg + "; " + RequireEnv + "=" + v + " requires it")

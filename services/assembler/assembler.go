@@ -461,14 +461,14 @@ func (a *Assembler) reachedLiveLocked(firstLive map[uint32]uint64) bool {
 }
 
 // repeatLocked reports whether batch seq of src, sent at sent (Unix ns,
-// 0 if not stamped), was taken already, given the highest batch taken of
-// src, last (seen: any at all); see dedupe and liveUpTo. A batch numbered
-// at or below last but sent after every batch of src taken is from a
-// readout started again (numbering from 0) and is new, whether it comes
-// from the stream or live: restarted reports that, and the source's
-// numbering starts over. Without send times the sequence numbers alone
-// decide. Called with a.mu held.
-func (a *Assembler) repeatLocked(src uint32, seq, last uint64, seen bool, sent int64) (repeat, restarted bool) {
+// 0 if not stamped), was taken already; see dedupe and liveUpTo. A batch
+// numbered at or below the highest taken of src but sent after every
+// batch of src taken is from a readout started again (numbering from 0)
+// and is new, whether it comes from the stream or live: restarted
+// reports that, and the source's numbering starts over. Without send
+// times the sequence numbers alone decide. Called with a.mu held.
+func (a *Assembler) repeatLocked(src uint32, seq uint64, sent int64) (repeat, restarted bool) {
+	last, seen := a.lastBatch[src]
 	if seen && seq <= last && sent > 0 {
 		if prev := a.lastSent[src]; prev > 0 && sent > prev {
 			delete(a.liveUpTo, src)
@@ -500,12 +500,11 @@ func (a *Assembler) repeatedLocked(batch *wireBatch) bool {
 		return false
 	}
 	src := batch.sourceID
-	last, seen := a.lastBatch[src]
-	repeat, restarted := a.repeatLocked(src, batch.sequence, last, seen, batch.sentUnixNs)
+	repeat, restarted := a.repeatLocked(src, batch.sequence, batch.sentUnixNs)
 	if repeat {
 		return true
 	}
-	if restarted || !seen || batch.sequence > last {
+	if last, seen := a.lastBatch[src]; restarted || !seen || batch.sequence > last {
 		a.lastBatch[src] = batch.sequence
 	}
 	if batch.sentUnixNs > a.lastSent[src] {

@@ -25,50 +25,45 @@ func TestRepeatTellsARestartedReadoutFromARepeat(t *testing.T) {
 			}
 			// Batches 3 to 5 of the first readout, again: repeats.
 			for seq := uint64(3); seq <= 5; seq++ {
-				last, seen := a.lastBatch[src]
-				if rep, _ := a.repeatLocked(src, seq, last, seen, int64(seq)*1_000); !rep {
+				if !a.repeatedLocked(dataBatch(src, seq, int64(seq)*1_000)) {
 					t.Errorf("batch %d sent again with its first send time was taken twice", seq)
 				}
 			}
 			// The readout started again: batches 0 to 7, sent later.
 			for seq := uint64(0); seq <= 7; seq++ {
-				last, seen := a.lastBatch[src]
-				sent := 10_000 + int64(seq)*1_000
-				rep, restarted := a.repeatLocked(src, seq, last, seen, sent)
-				if rep {
+				if a.repeatedLocked(dataBatch(src, seq, 10_000+int64(seq)*1_000)) {
 					t.Fatalf("batch %d of the readout started again was passed over as a repeat", seq)
 				}
-				if want := seq == 0; restarted != want {
-					t.Errorf("batch %d: restarted = %v, want %v", seq, restarted, want)
+				if a.lastBatch[src] != seq {
+					t.Fatalf("after batch %d of the readout started again: numbering at %d", seq, a.lastBatch[src])
 				}
-				// What takeLocked records for a batch taken.
-				if restarted || !seen || seq > last {
-					a.lastBatch[src] = seq
-				}
-				a.lastSent[src] = sent
 			}
 			// Reading the stream, a repeat of the new readout's batch 2
 			// is passed over. (Live, once past the stream, every batch
 			// comes once: NATS core does not deliver twice.)
-			last, seen := a.lastBatch[src]
-			if rep, _ := a.repeatLocked(src, 2, last, seen, 12_000); mode.dedupe && !rep {
+			if rep := a.repeatedLocked(dataBatch(src, 2, 12_000)); mode.dedupe && !rep {
 				t.Error("a repeat of the new readout's batch 2 was taken twice")
 			}
 		})
 	}
 }
 
+// dataBatch is a batch of one fragment of src, numbered seq, sent at sent.
+func dataBatch(src uint32, seq uint64, sent int64) *wireBatch {
+	return &wireBatch{sourceID: src, sequence: seq, sentUnixNs: sent, frags: make([]*heldFragment, 1)}
+}
+
 // Without send times (batches not stamped, or a state file written
 // before they were kept) the sequence numbers alone decide, as before.
 func TestRepeatWithoutSendTimes(t *testing.T) {
 	a := &Assembler{lastBatch: map[uint32]uint64{1: 5}, lastSent: map[uint32]int64{}, liveUpTo: map[uint32]uint64{1: 5}}
-	if rep, _ := a.repeatLocked(1, 4, 5, true, 0); !rep {
+	if !a.repeatedLocked(dataBatch(1, 4, 0)) {
 		t.Error("batch 4 below the stream's highest, before any live batch passed it, was taken")
 	}
-	if rep, _ := a.repeatLocked(1, 6, 5, true, 0); rep {
+	if a.repeatedLocked(dataBatch(1, 6, 0)) {
 		t.Error("batch 6 past the stream's highest was passed over")
 	}
-	if rep, _ := a.repeatLocked(1, 0, 6, true, 0); rep {
+	if a.repeatedLocked(dataBatch(1, 0, 0)) {
 		t.Error("batch 0 after the live batches passed the stream's was passed over")
 	}
 }
@@ -81,8 +76,7 @@ func TestEndMarkerLeavesTheNumberingAlone(t *testing.T) {
 	const src = 3
 	a := &Assembler{lastBatch: map[uint32]uint64{}, lastSent: map[uint32]int64{}}
 	for seq := uint64(0); seq <= 100; seq++ {
-		b := &wireBatch{sourceID: src, sequence: seq, sentUnixNs: 1_000 + int64(seq), frags: make([]*heldFragment, 1)}
-		if a.repeatedLocked(b) {
+		if a.repeatedLocked(dataBatch(src, seq, 1_000+int64(seq))) {
 			t.Fatalf("batch %d, first time, passed over", seq)
 		}
 	}
@@ -95,8 +89,7 @@ func TestEndMarkerLeavesTheNumberingAlone(t *testing.T) {
 	// A resumed builder reads the stream again from a little before.
 	a.dedupe = true
 	for seq := uint64(95); seq <= 100; seq++ {
-		b := &wireBatch{sourceID: src, sequence: seq, sentUnixNs: 1_000 + int64(seq), frags: make([]*heldFragment, 1)}
-		if !a.repeatedLocked(b) {
+		if !a.repeatedLocked(dataBatch(src, seq, 1_000+int64(seq))) {
 			t.Errorf("batch %d read again from the stream was taken twice", seq)
 		}
 	}
